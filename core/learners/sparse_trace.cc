@@ -1,0 +1,44 @@
+#include "core/learners/sparse_trace.h"
+
+#include <cmath>
+#include <limits>
+
+namespace bellwether {
+
+SparseTrace::SparseTrace(uint32_t num_features, float prune)
+    : prune_(prune), e_(num_features, 0.0f) {
+  active_.reserve(256);
+}
+
+void SparseTrace::DecayAndPrune(float decay) {
+  size_t kept = 0;
+  for (uint32_t j : active_) {
+    float v = e_[j] * decay;
+    if (std::fabs(v) < prune_) {
+      e_[j] = 0.0f;
+    } else {
+      e_[j] = v;
+      active_[kept++] = j;
+    }
+  }
+  active_.resize(kept);
+}
+
+void SparseTrace::Accumulate(const SparseFeatures& x) {
+  for (size_t k = 0; k < x.size(); ++k) {
+    const uint32_t j = x.index[k];
+    if (e_[j] == 0.0f) active_.push_back(j);
+    e_[j] += x.value[k];
+    // A listed entry must stay non-zero until the next decay prunes it, or a later
+    // Accumulate would list it twice; an exact cancellation keeps the smallest normal
+    // float instead (far below the pruning threshold, so it is dropped at the next decay).
+    if (e_[j] == 0.0f) e_[j] = std::numeric_limits<float>::min();
+  }
+}
+
+void SparseTrace::Clear() {
+  for (uint32_t j : active_) e_[j] = 0.0f;
+  active_.clear();
+}
+
+}  // namespace bellwether

@@ -1,0 +1,39 @@
+// An eligibility trace over the feature table, kept sparse: entries that decay below a
+// pruning threshold are dropped, so an update touches only recently active features.
+#ifndef BELLWETHER_CORE_LEARNERS_SPARSE_TRACE_H_
+#define BELLWETHER_CORE_LEARNERS_SPARSE_TRACE_H_
+
+#include <cstdint>
+#include <vector>
+
+#include "core/features/sparse_features.h"
+
+namespace bellwether {
+
+class SparseTrace {
+ public:
+  // Entries whose magnitude falls below this after decay are set to zero.
+  static constexpr float kDefaultPrune = 1e-4f;
+
+  explicit SparseTrace(uint32_t num_features, float prune = kDefaultPrune);
+
+  // e <- decay * e, then entries below the pruning threshold are dropped.
+  void DecayAndPrune(float decay);
+  // Accumulating trace: e[x_j] += x_j value.
+  void Accumulate(const SparseFeatures& x);
+  // e <- 0.
+  void Clear();
+
+  // Non-zero entries: feature indices and their trace values, same order.
+  const std::vector<uint32_t>& active() const { return active_; }
+  float value(uint32_t feature) const { return e_[feature]; }
+
+ private:
+  float prune_;
+  std::vector<float> e_;           // dense, one entry per feature
+  std::vector<uint32_t> active_;   // features with e_ != 0
+};
+
+}  // namespace bellwether
+
+#endif  // BELLWETHER_CORE_LEARNERS_SPARSE_TRACE_H_
