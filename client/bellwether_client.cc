@@ -1,0 +1,127 @@
+#include "client/bellwether_client.h"
+
+#include "absl/strings/str_cat.h"
+#include "grpcpp/grpcpp.h"
+
+namespace bellwether {
+namespace {
+
+void SetDeadline(grpc::ClientContext* context, absl::Duration timeout) {
+  context->set_deadline(absl::ToChronoTime(absl::Now() + timeout));
+}
+
+}  // namespace
+
+std::string GrpcCodeName(grpc::StatusCode code) {
+  switch (code) {
+    case grpc::StatusCode::OK: return "OK";
+    case grpc::StatusCode::CANCELLED: return "CANCELLED";
+    case grpc::StatusCode::UNKNOWN: return "UNKNOWN";
+    case grpc::StatusCode::INVALID_ARGUMENT: return "INVALID_ARGUMENT";
+    case grpc::StatusCode::DEADLINE_EXCEEDED: return "DEADLINE_EXCEEDED";
+    case grpc::StatusCode::NOT_FOUND: return "NOT_FOUND";
+    case grpc::StatusCode::ALREADY_EXISTS: return "ALREADY_EXISTS";
+    case grpc::StatusCode::PERMISSION_DENIED: return "PERMISSION_DENIED";
+    case grpc::StatusCode::UNAUTHENTICATED: return "UNAUTHENTICATED";
+    case grpc::StatusCode::RESOURCE_EXHAUSTED: return "RESOURCE_EXHAUSTED";
+    case grpc::StatusCode::FAILED_PRECONDITION: return "FAILED_PRECONDITION";
+    case grpc::StatusCode::ABORTED: return "ABORTED";
+    case grpc::StatusCode::OUT_OF_RANGE: return "OUT_OF_RANGE";
+    case grpc::StatusCode::UNIMPLEMENTED: return "UNIMPLEMENTED";
+    case grpc::StatusCode::INTERNAL: return "INTERNAL";
+    case grpc::StatusCode::UNAVAILABLE: return "UNAVAILABLE";
+    case grpc::StatusCode::DATA_LOSS: return "DATA_LOSS";
+    default: return absl::StrCat("CODE_", static_cast<int>(code));
+  }
+}
+
+absl::Status FromGrpc(const grpc::Status& status) {
+  if (status.ok()) return absl::OkStatus();
+  return absl::Status(static_cast<absl::StatusCode>(status.error_code()), status.error_message());
+}
+
+IngestSession::~IngestSession() {
+  if (!finished_) (void)Finish();
+}
+
+absl::StatusOr<v1::IngestResponse> IngestSession::Send(const v1::FrameBatch& batch) {
+  if (finished_) return absl::FailedPreconditionError("ingest session already finished");
+  v1::IngestRequest request;
+  *request.mutable_batch() = batch;
+  v1::IngestResponse response;
+  if (!stream_->Write(request) || !stream_->Read(&response)) {
+    absl::Status s = Finish();
+    if (s.ok()) s = absl::UnavailableError("ingest stream closed by the server");
+    return s;
+  }
+  return response;
+}
+
+absl::Status IngestSession::Finish() {
+  if (finished_) return absl::OkStatus();
+  finished_ = true;
+  stream_->WritesDone();
+  v1::IngestResponse drain;
+  while (stream_->Read(&drain)) {
+  }
+  return FromGrpc(stream_->Finish());
+}
+
+std::unique_ptr<Client> Client::Connect(const std::string& target) {
+  return std::unique_ptr<Client>(
+      new Client(grpc::CreateChannel(target, grpc::InsecureChannelCredentials())));
+}
+
+Client::Client(std::shared_ptr<grpc::Channel> channel)
+    : channel_(std::move(channel)), stub_(v1::Bellwether::NewStub(channel_)) {}
+
+absl::StatusOr<bool> Client::ApplyPool(const v1::PoolSpec& spec, absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::ApplyPoolRequest request;
+  *request.mutable_spec() = spec;
+  v1::ApplyPoolResponse response;
+  const grpc::Status s = stub_->ApplyPool(&context, request, &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response.created();
+}
+
+absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(
+    const std::string& pool, const std::string& stream, const std::vector<std::string>& columns) {
+  std::unique_ptr<IngestSession> session(new IngestSession());
+  session->context_ = std::make_unique<grpc::ClientContext>();
+  session->stream_ = stub_->Ingest(session->context_.get());
+  v1::IngestRequest request;
+  request.mutable_open()->set_pool(pool);
+  request.mutable_open()->set_stream(stream);
+  for (const std::string& c : columns) request.mutable_open()->add_columns(c);
+  if (!session->stream_->Write(request)) {
+    absl::Status s = session->Finish();
+    if (s.ok()) s = absl::UnavailableError("ingest stream closed by the server");
+    return s;
+  }
+  return session;
+}
+
+absl::StatusOr<v1::StreamPredictions> Client::Predict(const std::string& pool,
+                                                      const std::string& stream,
+                                                      absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::PredictRequest request;
+  request.set_pool(pool);
+  request.set_stream(stream);
+  v1::StreamPredictions response;
+  const grpc::Status s = stub_->Predict(&context, request, &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
+absl::Status Client::WaitUntilReachable(absl::Duration timeout) {
+  if (!channel_->WaitForConnected(absl::ToChronoTime(absl::Now() + timeout))) {
+    return absl::UnavailableError("server not reachable");
+  }
+  return absl::OkStatus();
+}
+
+}  // namespace bellwether

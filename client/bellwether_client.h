@@ -1,0 +1,75 @@
+// A small C++ client for bellwetherd: apply pool specs, stream frames, read answers.
+//
+//   auto client = bellwether::Client::Connect("127.0.0.1:50151");
+//   auto created = client->ApplyPool(spec);
+//   auto session = client->OpenIngest("campus", "hall-a", {"power_kw", "energy_kwh"});
+//   auto ack = (*session)->Send(batch);           // waits for the batch's acknowledgement
+//   auto answers = client->Predict("campus", "hall-a");
+//
+// Errors are absl::Status values carrying the server's gRPC code and message.
+// A Client is thread-safe; an IngestSession is used by one thread at a time.
+#ifndef BELLWETHER_CLIENT_BELLWETHER_CLIENT_H_
+#define BELLWETHER_CLIENT_BELLWETHER_CLIENT_H_
+
+#include <memory>
+#include <string>
+#include <vector>
+
+#include "absl/status/statusor.h"
+#include "absl/time/time.h"
+#include "bellwether/v1/service.grpc.pb.h"
+
+namespace bellwether {
+
+// The name of a gRPC status code, e.g. "INVALID_ARGUMENT".
+std::string GrpcCodeName(grpc::StatusCode code);
+// grpc::Status -> absl::Status (same code, same message).
+absl::Status FromGrpc(const grpc::Status& status);
+
+class IngestSession {
+ public:
+  ~IngestSession();
+  IngestSession(const IngestSession&) = delete;
+  IngestSession& operator=(const IngestSession&) = delete;
+
+  // Sends one batch and waits for its acknowledgement. On a rejected frame the call ends
+  // with the server's error (INVALID_ARGUMENT naming the frame's seq and field).
+  absl::StatusOr<v1::IngestResponse> Send(const v1::FrameBatch& batch);
+  // Closes the stream and returns the server's final status.
+  absl::Status Finish();
+
+ private:
+  friend class Client;
+  IngestSession() = default;
+  std::unique_ptr<grpc::ClientContext> context_;
+  std::unique_ptr<grpc::ClientReaderWriter<v1::IngestRequest, v1::IngestResponse>> stream_;
+  bool finished_ = false;
+};
+
+class Client {
+ public:
+  // Connects lazily (plaintext) to `target` ("HOST:PORT").
+  static std::unique_ptr<Client> Connect(const std::string& target);
+
+  // Creates the pool; true if created, false if an identical one existed.
+  absl::StatusOr<bool> ApplyPool(const v1::PoolSpec& spec,
+                                 absl::Duration timeout = absl::Seconds(10));
+  // Opens an ingest stream for one stream of a pool. `columns` gives the order of
+  // Frame.values (empty: the pool's declared order). Fails if the server rejects the open.
+  absl::StatusOr<std::unique_ptr<IngestSession>> OpenIngest(
+      const std::string& pool, const std::string& stream, const std::vector<std::string>& columns);
+  // Current answers of one stream.
+  absl::StatusOr<v1::StreamPredictions> Predict(const std::string& pool, const std::string& stream,
+                                                absl::Duration timeout = absl::Seconds(10));
+  // OK once the channel is connected, UNAVAILABLE if not within `timeout`.
+  absl::Status WaitUntilReachable(absl::Duration timeout = absl::Seconds(5));
+
+ private:
+  explicit Client(std::shared_ptr<grpc::Channel> channel);
+  std::shared_ptr<grpc::Channel> channel_;
+  std::unique_ptr<v1::Bellwether::Stub> stub_;
+};
+
+}  // namespace bellwether
+
+#endif  // BELLWETHER_CLIENT_BELLWETHER_CLIENT_H_

@@ -1,0 +1,375 @@
+// bellwether: the command-line client. Predictions are advisory; Bellwether is not a
+// safety system.
+#include <unistd.h>
+
+#include <csignal>
+#include <cstdio>
+#include <fstream>
+#include <iostream>
+#include <map>
+#include <string>
+#include <thread>
+#include <vector>
+
+#include "absl/strings/numbers.h"
+#include "absl/strings/str_cat.h"
+#include "absl/strings/str_format.h"
+#include "absl/time/clock.h"
+#include "client/bellwether_client.h"
+#include "client/cli/campus_sim.h"
+#include "core/io/csv_frame_reader.h"
+#include "core/io/spec_json.h"
+#include "core/pool.h"
+#include "core/replay.h"
+
+namespace bellwether::cli {
+namespace {
+
+// Exit codes (documented in --help and the README).
+constexpr int kExitOk = 0;
+constexpr int kExitUsage = 1;
+constexpr int kExitServer = 2;
+constexpr int kExitPartial = 3;
+
+constexpr char kCaution[] =
+    "Predictions are advisory. Bellwether is not a safety system: building-control and\n"
+    "vehicle-charging decisions follow local codes and licensed practice.\n";
+
+constexpr char kUsage[] =
+    "usage: bellwether [--server HOST:PORT] COMMAND [ARGS]\n"
+    "\n"
+    "Learns forward-looking predictions about every asset you stream, and serves them.\n"
+    "\n"
+    "commands:\n"
+    "  apply FILE.json                      create a pool from a JSON spec\n"
+    "  stream --pool P --stream S FILE.csv  send a CSV file's rows as frames of one stream\n"
+    "  predict --pool P --stream S          print a stream's current answers\n"
+    "  replay --spec F.json --csv F.csv --out PRED.csv\n"
+    "                                       run a spec over history in-process (no server);\n"
+    "                                       PRED.csv has each row's predictions\n"
+    "  demo [--rate N] [--steps N]          apply the demo pool and stream a simulated campus\n"
+    "\n"
+    "options:\n"
+    "  --server HOST:PORT   daemon address (default 127.0.0.1:50151)\n"
+    "\n"
+    "examples:\n"
+    "  bellwether apply deploy/examples/grid.json\n"
+    "  bellwether stream --pool grid --stream uk ../shared/data/halfhourly-demand-2000.csv\n"
+    "  bellwether predict --pool grid --stream uk\n"
+    "  bellwether replay --spec deploy/examples/grid.json --csv demand.csv --out pred.csv\n"
+    "\n"
+    "exit codes: 0 ok, 1 usage or local input error, 2 server error (gRPC status named),\n"
+    "            3 partial (some frames were rejected)\n"
+    "\n";
+
+struct Args {
+  std::string server = "127.0.0.1:50151";
+  std::string command;
+  std::map<std::string, std::string> flags;
+  std::vector<std::string> positional;
+};
+
+// Parses "--name value" and "--name=value" pairs; everything else is positional.
+bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
+  std::vector<std::string> rest;
+  for (int i = 1; i < argc; ++i) {
+    std::string a = argv[i];
+    if (a.rfind("--", 0) == 0 && a.size() > 2) {
+      std::string name = a.substr(2), value;
+      const auto eq = name.find('=');
+      if (eq != std::string::npos) {
+        value = name.substr(eq + 1);
+        name = name.substr(0, eq);
+      } else if (name == "help") {
+        value = "1";
+      } else if (i + 1 < argc) {
+        value = argv[++i];
+      } else {
+        *error = absl::StrCat("--", name, " needs a value");
+        return false;
+      }
+      if (name == "server") {
+        args->server = value;
+      } else {
+        args->flags[name] = value;
+      }
+    } else if (a == "-h") {
+      args->flags["help"] = "1";
+    } else if (args->command.empty()) {
+      args->command = a;
+    } else {
+      args->positional.push_back(a);
+    }
+  }
+  return true;
+}
+
+int UsageError(const std::string& message) {
+  std::cerr << "bellwether: " << message << "\n(see bellwether --help)\n";
+  return kExitUsage;
+}
+
+int ServerError(const absl::Status& status) {
+  std::cerr << "bellwether: server error "
+            << GrpcCodeName(static_cast<grpc::StatusCode>(status.code())) << ": "
+            << status.message() << "\n";
+  return kExitServer;
+}
+
+// Checks that exactly the flags in `allowed` were given.
+bool OnlyFlags(const Args& args, std::initializer_list<const char*> allowed, std::string* bad) {
+  for (const auto& [name, value] : args.flags) {
+    bool ok = name == "help";
+    for (const char* a : allowed) ok |= (name == a);
+    if (!ok) {
+      *bad = name;
+      return false;
+    }
+  }
+  return true;
+}
+
+int Apply(const Args& args) {
+  if (args.positional.size() != 1) return UsageError("apply: expected one FILE.json");
+  auto spec = ReadPoolSpecFile(args.positional[0]);
+  if (!spec.ok()) return UsageError(std::string(spec.status().message()));
+  auto client = Client::Connect(args.server);
+  auto created = client->ApplyPool(*spec);
+  if (!created.ok()) return ServerError(created.status());
+  std::cout << "pool " << spec->name() << (*created ? " created" : " unchanged (same spec)")
+            << ": " << spec->questions_size() << " questions\n";
+  return kExitOk;
+}
+
+int Stream(const Args& args) {
+  const auto pool = args.flags.find("pool"), stream = args.flags.find("stream");
+  if (pool == args.flags.end() || stream == args.flags.end() || args.positional.size() != 1) {
+    return UsageError("stream: expected --pool P --stream S FILE.csv");
+  }
+  int batch_size = 256;
+  if (auto it = args.flags.find("batch"); it != args.flags.end()) {
+    if (!absl::SimpleAtoi(it->second, &batch_size) || batch_size < 1 || batch_size > 10000) {
+      return UsageError("--batch: expected a number of frames in 1..10000");
+    }
+  }
+  auto reader = CsvFrameReader::Open(args.positional[0]);
+  if (!reader.ok()) return UsageError(std::string(reader.status().message()));
+  auto client = Client::Connect(args.server);
+  auto session = client->OpenIngest(pool->second, stream->second, (*reader)->signal_columns());
+  if (!session.ok()) return ServerError(session.status());
+  v1::FrameBatch batch;
+  uint64_t sent = 0, applied_seq = 0;
+  auto flush = [&]() -> absl::Status {
+    if (batch.frames_size() == 0) return absl::OkStatus();
+    auto ack = (*session)->Send(batch);
+    if (!ack.ok()) return ack.status();
+    sent += static_cast<uint64_t>(batch.frames_size());
+    applied_seq = ack->applied_seq();
+    batch.Clear();
+    return absl::OkStatus();
+  };
+  while (true) {
+    v1::Frame frame;
+    auto more = (*reader)->Next(&frame);
+    if (!more.ok()) {
+      if (auto s = flush(); !s.ok()) return ServerError(s);
+      std::cerr << "bellwether: " << more.status().message() << "\n"
+                << "bellwether: stopped after " << sent << " frames (applied seq " << applied_seq
+                << ")\n";
+      return kExitPartial;
+    }
+    if (!*more) break;
+    *batch.add_frames() = std::move(frame);
+    if (batch.frames_size() >= batch_size) {
+      if (auto s = flush(); !s.ok()) return ServerError(s);
+    }
+  }
+  if (auto s = flush(); !s.ok()) return ServerError(s);
+  if (auto s = (*session)->Finish(); !s.ok()) return ServerError(s);
+  std::cout << "streamed " << sent << " frames to " << pool->second << "/" << stream->second
+            << " (applied seq " << applied_seq << ")\n";
+  return kExitOk;
+}
+
+void PrintPredictions(const v1::StreamPredictions& p) {
+  std::cout << absl::StrFormat("pool %s  stream %s  as of seq %d\n", p.pool(), p.stream(),
+                               p.as_of_seq());
+  std::cout << absl::StrFormat("%-24s %16s %-8s %14s %10s\n", "question", "answer", "unit",
+                               "verified RMSE", "verified n");
+  for (const v1::Prediction& q : p.predictions()) {
+    std::cout << absl::StrFormat("%-24s %16.4f %-8s %14.4f %10d\n", q.question(), q.value(),
+                                 q.unit(), q.verified().rmse(), q.verified().count());
+  }
+}
+
+int Predict(const Args& args) {
+  const auto pool = args.flags.find("pool"), stream = args.flags.find("stream");
+  if (pool == args.flags.end() || stream == args.flags.end()) {
+    return UsageError("predict: expected --pool P --stream S");
+  }
+  auto client = Client::Connect(args.server);
+  auto p = client->Predict(pool->second, stream->second);
+  if (!p.ok()) return ServerError(p.status());
+  PrintPredictions(*p);
+  std::cout << "(advisory; not a safety system)\n";
+  return kExitOk;
+}
+
+int Replay(const Args& args) {
+  const auto spec_flag = args.flags.find("spec"), csv = args.flags.find("csv"),
+             out = args.flags.find("out");
+  if (spec_flag == args.flags.end() || csv == args.flags.end() || out == args.flags.end()) {
+    return UsageError("replay: expected --spec F.json --csv F.csv --out PRED.csv");
+  }
+  auto spec = ReadPoolSpecFile(spec_flag->second);
+  if (!spec.ok()) return UsageError(std::string(spec.status().message()));
+  auto pool = Pool::Create(*spec);
+  if (!pool.ok()) return UsageError(std::string(pool.status().message()));
+  auto reader = CsvFrameReader::Open(csv->second);
+  if (!reader.ok()) return UsageError(std::string(reader.status().message()));
+  std::ofstream file(out->second);
+  if (!file) return UsageError(absl::StrCat(out->second, ": cannot open for writing"));
+  file << "row";
+  for (const CompiledQuestion& q : (*pool)->spec().questions) file << "," << q.name;
+  file << "\n";
+  uint64_t rows = 0;
+  const absl::Status s = bellwether::Replay(
+      **pool, **reader, "replay",
+      [&](uint64_t row, absl::Span<const double> predictions) {
+        file << row;
+        for (double v : predictions) file << absl::StrFormat(",%.17g", v);
+        file << "\n";
+        return absl::OkStatus();
+      },
+      &rows);
+  file.close();
+  if (!s.ok()) {
+    std::cerr << "bellwether: replay: " << csv->second << ": " << s.message() << "\n";
+    return kExitUsage;
+  }
+  if (!file) return UsageError(absl::StrCat(out->second, ": write failed"));
+  std::cout << "replayed " << rows << " rows; predictions in " << out->second << "\n";
+  return kExitOk;
+}
+
+volatile std::sig_atomic_t g_stop = 0;
+
+int Demo(const Args& args) {
+  double rate = 200;  // frames per second per building
+  int64_t steps = -1;  // unlimited
+  if (auto it = args.flags.find("rate"); it != args.flags.end()) {
+    if (!absl::SimpleAtod(it->second, &rate) || !(rate > 0 && rate <= 100000)) {
+      return UsageError("--rate: expected frames per second in (0, 100000]");
+    }
+  }
+  if (auto it = args.flags.find("steps"); it != args.flags.end()) {
+    if (!absl::SimpleAtoi(it->second, &steps) || steps < 1) {
+      return UsageError("--steps: expected a positive number of simulated steps");
+    }
+  }
+  std::signal(SIGINT, [](int) { g_stop = 1; });
+  std::signal(SIGTERM, [](int) { g_stop = 1; });
+  auto client = Client::Connect(args.server);
+  if (auto s = client->WaitUntilReachable(absl::Seconds(10)); !s.ok()) return ServerError(s);
+  const v1::PoolSpec spec = CampusSim::PoolSpec();
+  if (auto created = client->ApplyPool(spec); !created.ok()) return ServerError(created.status());
+  CampusSim sim;
+  std::vector<std::unique_ptr<IngestSession>> sessions;
+  std::vector<std::string> columns;
+  for (const auto& s : spec.signals()) columns.push_back(s.name());
+  for (const std::string& b : sim.buildings()) {
+    auto session = client->OpenIngest(spec.name(), b, columns);
+    if (!session.ok()) return ServerError(session.status());
+    sessions.push_back(std::move(*session));
+  }
+  std::cout << "Demo: the Alder Point campus (invented), three buildings, a frame every 15\n"
+               "simulated minutes. Questions: energy over the next ~12 hours and next hour\n"
+               "(discounted sums, kWh). 'verified' compares each past prediction with what\n"
+               "the building then actually used.\n"
+            << kCaution << std::endl;
+  const int per_batch = 16;
+  std::vector<v1::FrameBatch> batches(sim.buildings().size());
+  std::vector<v1::Frame> frames;
+  absl::Time next_print = absl::Now();
+  const absl::Time start = absl::Now();
+  int64_t done = 0;
+  while (!g_stop && (steps < 0 || done < steps)) {
+    for (int k = 0; k < per_batch && (steps < 0 || done < steps); ++k, ++done) {
+      sim.Step(&frames);
+      for (size_t b = 0; b < frames.size(); ++b) *batches[b].add_frames() = frames[b];
+    }
+    for (size_t b = 0; b < batches.size(); ++b) {
+      auto ack = sessions[b]->Send(batches[b]);
+      if (!ack.ok()) return ServerError(ack.status());
+      batches[b].Clear();
+    }
+    if (absl::Now() >= next_print || (steps >= 0 && done >= steps)) {
+      next_print = absl::Now() + absl::Seconds(2);
+      std::cout << absl::StrFormat("\n[campus clock %s]  %d frames per building\n",
+                                   sim.ClockText(), done);
+      std::cout << absl::StrFormat("%-10s %-18s %14s %22s\n", "building", "question",
+                                   "prediction", "verified RMSE (n)");
+      for (const std::string& b : sim.buildings()) {
+        auto p = client->Predict(spec.name(), b);
+        if (!p.ok()) return ServerError(p.status());
+        for (const v1::Prediction& q : p->predictions()) {
+          std::cout << absl::StrFormat("%-10s %-18s %10.1f %-3s %12.1f (%d)\n", b, q.question(),
+                                       q.value(), q.unit(), q.verified().rmse(),
+                                       q.verified().count());
+        }
+      }
+      std::cout.flush();
+    }
+    // Pace: `rate` steps per second.
+    const absl::Time due = start + absl::Seconds(static_cast<double>(done) / rate);
+    if (due > absl::Now()) absl::SleepFor(due - absl::Now());
+  }
+  for (auto& s : sessions) {
+    if (auto st = s->Finish(); !st.ok() && !g_stop) return ServerError(st);
+  }
+  std::cout << "\ndemo stopped after " << done << " steps per building\n";
+  return kExitOk;
+}
+
+int Main(int argc, char** argv) {
+  Args args;
+  std::string error;
+  if (!ParseArgs(argc, argv, &args, &error)) return UsageError(error);
+  if (args.command.empty() || args.command == "help" || args.flags.count("help")) {
+    std::cout << kUsage << kCaution;
+    return args.command.empty() && !args.flags.count("help") ? kExitUsage : kExitOk;
+  }
+  std::string bad;
+  if (args.command == "apply") {
+    if (!OnlyFlags(args, {}, &bad)) return UsageError("apply: unknown flag --" + bad);
+    return Apply(args);
+  }
+  if (args.command == "stream") {
+    if (!OnlyFlags(args, {"pool", "stream", "batch"}, &bad)) {
+      return UsageError("stream: unknown flag --" + bad);
+    }
+    return Stream(args);
+  }
+  if (args.command == "predict") {
+    if (!OnlyFlags(args, {"pool", "stream"}, &bad)) {
+      return UsageError("predict: unknown flag --" + bad);
+    }
+    return Predict(args);
+  }
+  if (args.command == "replay") {
+    if (!OnlyFlags(args, {"spec", "csv", "out"}, &bad)) {
+      return UsageError("replay: unknown flag --" + bad);
+    }
+    return Replay(args);
+  }
+  if (args.command == "demo") {
+    if (!OnlyFlags(args, {"rate", "steps"}, &bad)) return UsageError("demo: unknown flag --" + bad);
+    return Demo(args);
+  }
+  return UsageError("unknown command '" + args.command + "'");
+}
+
+}  // namespace
+}  // namespace bellwether::cli
+
+int main(int argc, char** argv) { return bellwether::cli::Main(argc, argv); }
