@@ -1,0 +1,284 @@
+// Integration: the real bellwetherd on 127.0.0.1 (port 0), driven over real gRPC.
+#include <fcntl.h>
+#include <signal.h>
+#include <sys/wait.h>
+#include <unistd.h>
+
+#include <cstdio>
+#include <fstream>
+#include <string>
+#include <vector>
+
+#include "absl/strings/match.h"
+#include "client/bellwether_client.h"
+#include "core/io/csv_frame_reader.h"
+#include "core/io/spec_json.h"
+#include "gmock/gmock.h"
+#include "gtest/gtest.h"
+#include "tests/test_util.h"
+
+namespace bellwether {
+namespace {
+
+using ::testing::HasSubstr;
+
+// Starts bellwetherd and reads the bound address from its first line of stdout.
+class Daemon {
+ public:
+  Daemon() {
+    state_dir_ = testing::MakeTempDir("daemon");
+    int fds[2];
+    if (pipe(fds) != 0) return;
+    pid_ = fork();
+    if (pid_ == 0) {
+      dup2(fds[1], 1);
+      close(fds[0]);
+      execl(BW_DAEMON_PATH, BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--state-dir",
+            state_dir_.c_str(), static_cast<char*>(nullptr));
+      _exit(127);
+    }
+    close(fds[1]);
+    FILE* out = fdopen(fds[0], "r");
+    char line[256] = {};
+    if (out != nullptr && std::fgets(line, sizeof(line), out) != nullptr) {
+      std::string l(line);
+      if (absl::StartsWith(l, "listening on ")) {
+        address_ = l.substr(13);
+        while (!address_.empty() && (address_.back() == '\n' || address_.back() == '\r')) {
+          address_.pop_back();
+        }
+      }
+    }
+    if (out != nullptr) std::fclose(out);
+  }
+  ~Daemon() {
+    if (pid_ > 0 && !stopped_) Stop();
+  }
+  // Sends SIGTERM and returns the exit code.
+  int Stop() {
+    stopped_ = true;
+    kill(pid_, SIGTERM);
+    int status = 0;
+    waitpid(pid_, &status, 0);
+    return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
+  }
+  const std::string& address() const { return address_; }
+
+ private:
+  pid_t pid_ = -1;
+  bool stopped_ = false;
+  std::string state_dir_;
+  std::string address_;
+};
+
+std::string GridSpecPath() { return std::string(BW_TEST_DATA_DIR) + "/grid_pool.json"; }
+std::string DemandPath() {
+  return std::string(BW_SHARED_DATA_DIR) + "/halfhourly-demand-2000.csv";
+}
+
+class DaemonTest : public ::testing::Test {
+ protected:
+  void SetUp() override {
+    ASSERT_THAT(daemon_.address(), HasSubstr("127.0.0.1:")) << "daemon did not start";
+    client_ = Client::Connect(daemon_.address());
+    auto spec = ReadPoolSpecFile(GridSpecPath());
+    ASSERT_TRUE(spec.ok()) << spec.status();
+    spec_ = *spec;
+    auto created = client_->ApplyPool(spec_);
+    ASSERT_TRUE(created.ok()) << created.status();
+    EXPECT_TRUE(*created);
+  }
+
+  Daemon daemon_;  // declared first: destroyed (stopped) after the client
+  std::unique_ptr<Client> client_;
+  v1::PoolSpec spec_;
+};
+
+TEST_F(DaemonTest, StreamedPredictionsEqualReplayOfTheSameRows) {
+  const size_t kRows = 1000;
+  // Replay through the real CLI binary.
+  const std::string dir = testing::MakeTempDir("e2e");
+  const std::string head = dir + "/head.csv", pred = dir + "/pred.csv";
+  {
+    std::ifstream in(DemandPath());
+    std::ofstream out(head);
+    std::string line;
+    for (size_t i = 0; i <= kRows && std::getline(in, line); ++i) out << line << "\n";
+  }
+  const auto r = testing::RunCommand(
+      {BW_CLI_PATH, "replay", "--spec", GridSpecPath(), "--csv", head, "--out", pred});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  const auto replayed = testing::ReadNumericCsv(pred);
+  ASSERT_EQ(replayed.size(), kRows);
+
+  // Stream the same rows over gRPC in batches of 64 and compare after every batch.
+  auto reader = CsvFrameReader::Open(head);
+  ASSERT_TRUE(reader.ok());
+  auto session = client_->OpenIngest("grid", "england", (*reader)->signal_columns());
+  ASSERT_TRUE(session.ok()) << session.status();
+  v1::FrameBatch batch;
+  size_t sent = 0, checked = 0;
+  while (true) {
+    v1::Frame f;
+    auto more = (*reader)->Next(&f);
+    ASSERT_TRUE(more.ok()) << more.status();
+    if (*more) *batch.add_frames() = f;
+    if (batch.frames_size() == 64 || (!*more && batch.frames_size() > 0)) {
+      auto ack = (*session)->Send(batch);
+      ASSERT_TRUE(ack.ok()) << ack.status();
+      sent += static_cast<size_t>(batch.frames_size());
+      EXPECT_EQ(ack->applied_seq(), sent);
+      batch.Clear();
+      auto p = client_->Predict("grid", "england");
+      ASSERT_TRUE(p.ok()) << p.status();
+      ASSERT_EQ(p->as_of_seq(), sent);
+      ASSERT_EQ(p->predictions_size(), 1);
+      EXPECT_EQ(p->predictions(0).value(), replayed[sent - 1][1]) << "after row " << sent;
+      EXPECT_EQ(p->predictions(0).unit(), "MW");
+      ++checked;
+    }
+    if (!*more) break;
+  }
+  EXPECT_EQ(sent, kRows);
+  EXPECT_GT(checked, 10u);
+  ASSERT_TRUE((*session)->Finish().ok());
+  session->reset();
+  // Verified error exists once returns have been realized (~163 rows after each).
+  auto p = client_->Predict("grid", "england");
+  ASSERT_TRUE(p.ok());
+  EXPECT_GT(p->predictions(0).verified().count(), 800u);
+  EXPECT_GT(p->predictions(0).verified().rmse(), 0.0);
+  // gRPC 1.51 holds a shutdown until connected clients drop their idle connections (or
+  // the grace period ends), so close ours first.
+  client_.reset();
+  EXPECT_EQ(daemon_.Stop(), 0) << "SIGTERM is a clean shutdown";
+}
+
+TEST_F(DaemonTest, BadInputIsInvalidArgumentNamingTheFieldAndChangesNothing) {
+  // A spec with gamma outside [0, 1].
+  v1::PoolSpec bad = spec_;
+  bad.set_name("grid2");
+  bad.mutable_questions(0)->set_gamma(1.5);
+  auto applied = client_->ApplyPool(bad);
+  EXPECT_EQ(applied.status().code(), absl::StatusCode::kInvalidArgument);
+  EXPECT_THAT(applied.status().message(), HasSubstr("questions[0] (demand_next_12h).gamma"));
+  // The same name with a different spec.
+  v1::PoolSpec changed = spec_;
+  changed.mutable_questions(0)->set_lambda(0.5);
+  EXPECT_EQ(client_->ApplyPool(changed).status().code(), absl::StatusCode::kAlreadyExists);
+  // Identical spec again: fine, not created.
+  auto again = client_->ApplyPool(spec_);
+  ASSERT_TRUE(again.ok());
+  EXPECT_FALSE(*again);
+
+  auto frame = [](uint64_t seq, double v) {
+    v1::FrameBatch b;
+    v1::Frame* f = b.add_frames();
+    f->set_seq(seq);
+    f->set_local_micros(static_cast<int64_t>(seq) * 1800 * 1000000);
+    f->add_values(v);
+    return b;
+  };
+  {
+    auto s = client_->OpenIngest("grid", "x", {});
+    ASSERT_TRUE(s.ok());
+    ASSERT_TRUE((*s)->Send(frame(1, 25000)).ok());
+    ASSERT_TRUE((*s)->Send(frame(2, 26000)).ok());
+  }
+  auto before = client_->Predict("grid", "x");
+  ASSERT_TRUE(before.ok());
+
+  struct Case {
+    v1::FrameBatch batch;
+    const char* message;
+  };
+  std::vector<Case> cases = {
+      {frame(2, 27000), "frame seq 2: seq does not increase"},
+      {frame(3, std::nan("")), "frame seq 3: values[0] (demand_mw): NaN"},
+      {frame(3, HUGE_VAL), "frame seq 3: values[0] (demand_mw)"},
+  };
+  v1::FrameBatch two_values = frame(3, 1);
+  two_values.mutable_frames(0)->add_values(2);
+  cases.push_back({two_values, "values: has 2 entries, expected 1"});
+  for (const Case& c : cases) {
+    auto s = client_->OpenIngest("grid", "x", {});
+    ASSERT_TRUE(s.ok());
+    auto ack = (*s)->Send(c.batch);
+    EXPECT_EQ(ack.status().code(), absl::StatusCode::kInvalidArgument) << c.message;
+    EXPECT_THAT(ack.status().message(), HasSubstr(c.message));
+  }
+  // Unknown pool / column / stream.
+  auto s = client_->OpenIngest("nope", "x", {});
+  ASSERT_TRUE(s.ok());
+  EXPECT_EQ((*s)->Send(frame(3, 1)).status().code(), absl::StatusCode::kNotFound);
+  s = client_->OpenIngest("grid", "x", {"demand_gw"});
+  ASSERT_TRUE(s.ok());
+  auto col = (*s)->Send(frame(3, 1));
+  EXPECT_EQ(col.status().code(), absl::StatusCode::kInvalidArgument);
+  EXPECT_THAT(col.status().message(), HasSubstr("open.columns[0]: 'demand_gw'"));
+  EXPECT_EQ(client_->Predict("grid", "nobody").status().code(), absl::StatusCode::kNotFound);
+
+  auto after = client_->Predict("grid", "x");
+  ASSERT_TRUE(after.ok());
+  EXPECT_EQ(after->SerializeAsString(), before->SerializeAsString())
+      << "rejected input must not change learned state";
+}
+
+TEST(DaemonCli, ApplyStreamPredictThroughTheCli) {
+  Daemon daemon;
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  const std::string server = daemon.address();
+  auto r = testing::RunCommand({BW_CLI_PATH, "--server", server, "apply", GridSpecPath()});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("pool grid created"));
+  r = testing::RunCommand(
+      {BW_CLI_PATH, "--server", server, "stream", "--pool", "grid", "--stream", "uk", DemandPath()});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("streamed 2688 frames"));
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "predict", "--pool", "grid",
+                           "--stream", "uk"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("demand_next_12h"));
+  EXPECT_THAT(r.out, HasSubstr("as of seq 2688"));
+  // Streaming the same file again: seq 1 does not increase -> server error, exit code 2.
+  r = testing::RunCommand(
+      {BW_CLI_PATH, "--server", server, "stream", "--pool", "grid", "--stream", "uk", DemandPath()});
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_THAT(r.err, HasSubstr("INVALID_ARGUMENT"));
+  EXPECT_THAT(r.err, HasSubstr("seq does not increase"));
+  // Unknown pool: NOT_FOUND, exit code 2.
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "predict", "--pool", "nope",
+                           "--stream", "uk"});
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_THAT(r.err, HasSubstr("NOT_FOUND"));
+}
+
+TEST(DaemonCli, DemoRunsABoundedNumberOfSteps) {
+  Daemon daemon;
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  auto r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "demo", "--rate",
+                                "100000", "--steps", "800"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("energy_next_12h"));
+  EXPECT_THAT(r.out, HasSubstr("not a safety system"));
+  EXPECT_THAT(r.out, HasSubstr("demo stopped after 800 steps"));
+}
+
+TEST(Cli, UsageAndLocalInputErrors) {
+  auto r = testing::RunCommand({BW_CLI_PATH, "--help"});
+  EXPECT_EQ(r.exit_code, 0);
+  EXPECT_THAT(r.out, HasSubstr("not a safety system"));
+  r = testing::RunCommand({BW_CLI_PATH, "frobnicate"});
+  EXPECT_EQ(r.exit_code, 1);
+  r = testing::RunCommand({BW_CLI_PATH, "apply", "/nonexistent/spec.json"});
+  EXPECT_EQ(r.exit_code, 1);
+  EXPECT_THAT(r.err, HasSubstr("/nonexistent/spec.json: cannot open"));
+  // Server down: a clear message and exit code 2.
+  r = testing::RunCommand(
+      {BW_CLI_PATH, "--server", "127.0.0.1:1", "apply", GridSpecPath()});
+  EXPECT_EQ(r.exit_code, 2);
+  EXPECT_THAT(r.err, HasSubstr("UNAVAILABLE"));
+}
+
+}  // namespace
+}  // namespace bellwether
