@@ -2,52 +2,224 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 #include <utility>
 
 #include "absl/strings/str_cat.h"
+#include "absl/time/civil_time.h"
 #include "core/clock_signals.h"
 #include "core/status_macros.h"
+#include "google/protobuf/util/message_differencer.h"
 
 namespace bellwether {
+namespace {
+
+constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
+
+// Fields of a question spec that change what it learns (all but the unit).
+v1::QuestionSpec LearningFields(const v1::QuestionSpec& q) {
+  v1::QuestionSpec out = q;
+  out.clear_unit();
+  return out;
+}
+
+// Fields of a pool spec that change the feature table or what a frame means.
+v1::PoolSpec RecipeFields(const v1::PoolSpec& p) {
+  v1::PoolSpec out = p;
+  out.clear_name();
+  out.clear_questions();
+  for (v1::SignalSpec& s : *out.mutable_signals()) s.clear_unit();
+  return out;
+}
+
+}  // namespace
 
 absl::StatusOr<std::unique_ptr<Pool>> Pool::Create(const v1::PoolSpec& spec) {
   BW_ASSIGN_OR_RETURN(CompiledPoolSpec compiled, CompilePoolSpec(spec));
   return std::unique_ptr<Pool>(new Pool(std::move(compiled)));
 }
 
-Pool::Pool(CompiledPoolSpec spec) : spec_(std::move(spec)) {
-  const uint32_t nf = spec_.recipe->num_features();
-  size_t widest = 1;
-  for (const BlockSpec& b : spec_.blocks) widest = std::max(widest, b.questions.size());
+Pool::Pool(CompiledPoolSpec spec)
+    : spec_(std::move(spec)),
+      num_actions_(static_cast<uint32_t>(std::max<size_t>(spec_.actions.size(), 1))),
+      normalizer_(spec_.recipe->NewNormalizerState()),
+      learner_(spec_.recipe->num_features() * num_actions_,
+               [this] {
+                 size_t widest = 1;
+                 for (const BlockSpec& b : spec_.blocks) widest = std::max(widest, b.questions.size());
+                 return static_cast<uint32_t>(widest);
+               }(),
+               num_actions_) {
   if (spec_.pooled) {
     for (const BlockSpec& b : spec_.blocks) {
-      pooled_weights_.emplace_back(nf, static_cast<uint32_t>(b.questions.size()));
+      pooled_params_.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
     }
   }
+  const size_t nq = spec_.questions.size();
   extended_.resize(spec_.num_extended_signals());
   next_x_.Reserve(spec_.recipe->max_active());
-  v_now_.resize(widest);
-  v_next_.resize(widest);
-  step_delta_.resize(widest);
+  next_answers_.resize(nq);
+  cumulants_.resize(nq);
+  block_answers_.resize(nq);
+  trans_cumulant_.resize(nq);
+  trans_continuation_.resize(nq);
+  trans_pi_.resize(nq);
+  pi_now_.resize(num_actions_);
+  pi_next_.resize(num_actions_);
+  q_values_.resize(num_actions_);
+}
+
+absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1::PoolSpec& spec) {
+  BW_ASSIGN_OR_RETURN(std::unique_ptr<Pool> pool, Create(spec));
+  using google::protobuf::util::MessageDifferencer;
+  if (!MessageDifferencer::Equals(RecipeFields(old.spec_.proto), RecipeFields(spec))) {
+    return pool;  // a different feature table: nothing learned carries over
+  }
+  // Matching questions: new index -> old index.
+  std::vector<int> from(pool->spec_.questions.size(), -1);
+  for (size_t n = 0; n < pool->spec_.questions.size(); ++n) {
+    for (size_t o = 0; o < old.spec_.questions.size(); ++o) {
+      if (old.spec_.questions[o].name == pool->spec_.questions[n].name &&
+          MessageDifferencer::Equals(LearningFields(old.spec_.proto.questions(static_cast<int>(o))),
+                                     LearningFields(spec.questions(static_cast<int>(n))))) {
+        from[n] = static_cast<int>(o);
+      }
+    }
+  }
+  auto copy_params = [&](const std::vector<BlockParams>& src, std::vector<BlockParams>& dst) {
+    for (size_t n = 0; n < from.size(); ++n) {
+      if (from[n] < 0) continue;
+      const CompiledQuestion& nq = pool->spec_.questions[n];
+      const CompiledQuestion& oq = old.spec_.questions[static_cast<size_t>(from[n])];
+      dst[nq.block].CopyColumnFrom(src[oq.block], static_cast<uint32_t>(oq.index_in_block),
+                                   static_cast<uint32_t>(nq.index_in_block));
+    }
+  };
+  if (pool->spec_.pooled) copy_params(old.pooled_params_, pool->pooled_params_);
+  pool->normalizer_ = old.normalizer_;
+  for (const auto& [name, old_state] : old.streams_) {
+    StreamState& s = pool->GetOrCreateStream(name);
+    s.last_seq = old_state->last_seq;
+    s.has_prev = old_state->has_prev;
+    s.prev_x = old_state->prev_x;
+    s.prev_action = old_state->prev_action;
+    s.prev_behavior_prob = old_state->prev_behavior_prob;
+    s.prev_time_micros = old_state->prev_time_micros;
+    s.behavior_counts = old_state->behavior_counts;
+    if (!pool->spec_.pooled) copy_params(old_state->own_params, s.own_params);
+    for (size_t n = 0; n < from.size(); ++n) {
+      if (from[n] < 0) continue;
+      const size_t o = static_cast<size_t>(from[n]);
+      s.answers[n] = old_state->answers[o];
+      s.greedy_actions[n] = old_state->greedy_actions[o];
+      s.verifiers[n] = old_state->verifiers[o];
+    }
+  }
+  return pool;
 }
 
 Pool::StreamState& Pool::GetOrCreateStream(absl::string_view stream) {
   auto it = streams_.find(stream);
   if (it != streams_.end()) return *it->second;
   auto state = std::make_unique<StreamState>();
-  const uint32_t nf = spec_.recipe->num_features();
   state->prev_x.Reserve(spec_.recipe->max_active());
-  state->predictions.assign(spec_.questions.size(), 0.0);
+  state->prev_behavior_prob = kNaN;
+  state->answers.assign(spec_.questions.size(), 0.0);
+  state->greedy_actions.assign(spec_.questions.size(), -1);
   for (const BlockSpec& b : spec_.blocks) {
-    state->traces.emplace_back(nf);
-    if (!spec_.pooled) {
-      state->own_weights.emplace_back(nf, static_cast<uint32_t>(b.questions.size()));
-    }
+    const uint32_t rows = spec_.recipe->num_features() * (b.action_valued ? num_actions_ : 1);
+    state->block_states.emplace_back(rows);
+    state->block_states.back().v_old.assign(b.questions.size(), 0.0);
+    if (!spec_.pooled) state->own_params.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
   }
   for (const CompiledQuestion& q : spec_.questions) state->verifiers.emplace_back(q.gamma);
+  if (spec_.estimate_behavior) {
+    state->behavior_counts.assign((spec_.behavior_cells->num_tiles() + 1) * num_actions_, 0);
+  }
   StreamState& ref = *state;
   streams_.emplace(std::string(stream), std::move(state));
   return ref;
+}
+
+BlockParams& Pool::ParamsFor(StreamState& s, size_t b) {
+  return spec_.pooled ? pooled_params_[b] : s.own_params[b];
+}
+const BlockParams& Pool::ParamsFor(const StreamState& s, size_t b) const {
+  return spec_.pooled ? pooled_params_[b] : s.own_params[b];
+}
+
+std::optional<int64_t> Pool::AbsoluteTime(const FrameInput& frame) const {
+  switch (frame.time_kind) {
+    case FrameTimeKind::kNone:
+      return std::nullopt;
+    case FrameTimeKind::kUnix:
+      return frame.time_micros;
+    case FrameTimeKind::kLocal: {
+      int64_t secs = frame.time_micros / 1000000, sub = frame.time_micros % 1000000;
+      if (sub < 0) {
+        sub += 1000000;
+        --secs;
+      }
+      const absl::CivilSecond civil = absl::CivilSecond(1970, 1, 1, 0, 0, 0) + secs;
+      return absl::ToUnixMicros(absl::FromCivil(civil, spec_.time_zone)) + sub;
+    }
+  }
+  return std::nullopt;
+}
+
+void Pool::PolicyDistribution(const CompiledPolicy& policy, StreamState& s,
+                              const SparseFeatures& x, absl::Span<double> out) {
+  switch (policy.kind) {
+    case PolicyKind::kBehavior:
+      std::fill(out.begin(), out.end(), 1.0 / static_cast<double>(out.size()));
+      return;
+    case PolicyKind::kAction:
+      std::fill(out.begin(), out.end(), 0.0);
+      out[policy.action] = 1.0;
+      return;
+    case PolicyKind::kDistribution:
+      std::copy(policy.probabilities.begin(), policy.probabilities.end(), out.begin());
+      return;
+    case PolicyKind::kGreedy: {
+      const CompiledQuestion& control = spec_.questions[policy.control_question];
+      learner_.ActionValues(x, ParamsFor(s, control.block),
+                            static_cast<uint32_t>(control.index_in_block),
+                            absl::MakeSpan(q_values_));
+      double best = -std::numeric_limits<double>::infinity();
+      for (double v : q_values_) best = std::max(best, v);
+      int count = 0;
+      for (double v : q_values_) count += (v == best);
+      for (size_t a = 0; a < out.size(); ++a) {
+        out[a] = count == 0 ? 1.0 / static_cast<double>(out.size())
+                            : (q_values_[a] == best ? 1.0 / count : 0.0);
+      }
+      return;
+    }
+  }
+}
+
+double Pool::EstimateBehavior(StreamState& s, int action) {
+  // Laplace-smoothed counts of actions in the frame's coarse cell, before this action.
+  SparseFeatures cell;
+  double inputs[8];
+  bool complete = true;
+  for (size_t d = 0; d < spec_.behavior_cell_inputs.size(); ++d) {
+    inputs[d] = extended_[spec_.behavior_cell_inputs[d]];
+    complete &= !std::isnan(inputs[d]);
+  }
+  size_t c = spec_.behavior_cells->num_tiles();  // the "unknown" cell
+  if (complete) {
+    cell.Reserve(1);
+    spec_.behavior_cells->Encode(absl::MakeConstSpan(inputs, spec_.behavior_cell_inputs.size()), 0,
+                                 0, &cell);
+    c = cell.index[0];
+  }
+  uint32_t* counts = &s.behavior_counts[c * num_actions_];
+  uint64_t total = 0;
+  for (uint32_t a = 0; a < num_actions_; ++a) total += counts[a];
+  const double mu = (counts[action] + 1.0) / (static_cast<double>(total) + num_actions_);
+  ++counts[action];
+  return mu;
 }
 
 absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
@@ -63,67 +235,150 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
         absl::StrCat("frame seq ", frame.seq, ": seq does not increase (stream '", stream,
                      "' last applied seq ", last, ")"));
   }
+  if (frame.action.has_value() && *frame.action >= spec_.actions.size()) {
+    return absl::InvalidArgumentError(absl::StrCat(
+        "frame seq ", frame.seq, ": action: ", *frame.action, " is not an action of pool ",
+        name(), " (", spec_.actions.size(), " declared)"));
+  }
   StreamState& s = GetOrCreateStream(stream);
 
   // Extended signal vector: declared signals, then clock signals; NaN = missing.
   std::copy(frame.values.begin(), frame.values.end(), extended_.begin());
   ComputeClockSignals(frame.time_kind, frame.time_micros, spec_.time_zone,
                       absl::MakeSpan(extended_).subspan(spec_.signal_names.size()));
-  spec_.recipe->Encode(extended_, &next_x_);
+  spec_.recipe->Encode(extended_, &normalizer_, &next_x_);
+  const std::optional<int64_t> now = AbsoluteTime(frame);
 
+  if (frame.restart) {
+    for (BlockTraceState& b : s.block_states) b.Reset();
+  }
   const bool learn = s.has_prev && !frame.restart && !s.prev_x.empty();
-  for (size_t b = 0; b < spec_.blocks.size(); ++b) {
-    const BlockSpec& block = spec_.blocks[b];
-    BlockWeights& w = spec_.pooled ? pooled_weights_[b] : s.own_weights[b];
+  for (size_t bi = 0; bi < spec_.blocks.size(); ++bi) {
+    const BlockSpec& block = spec_.blocks[bi];
+    BlockParams& params = ParamsFor(s, bi);
+    BlockTraceState& state = s.block_states[bi];
     const size_t nq = block.questions.size();
-    const auto v_now = absl::MakeSpan(v_now_.data(), nq);
-    const auto v_next = absl::MakeSpan(v_next_.data(), nq);
-    SparseTrace& trace = s.traces[b];
-    if (frame.restart) trace.Clear();
-    if (learn) {
-      w.Predict(s.prev_x, v_now);
-      w.Predict(next_x_, v_next);
-      const double gamma = block.gamma;
-      const double norm = 1.0 / static_cast<double>(s.prev_x.size());
-      bool any = false;
+    const auto answers = absl::MakeSpan(block_answers_.data(), nq);
+    const bool off_policy = block.policy.kind != PolicyKind::kBehavior;
+    if (block.action_valued && block.learner == LearnerKind::kTreeBackup) {
+      PolicyDistribution(block.policy, s, next_x_, absl::MakeSpan(pi_next_));
+    }
+    int greedy = -1;
+    if (!learn) {
+      learner_.Answer(block, next_x_, pi_next_, params, answers, &greedy);
       for (size_t i = 0; i < nq; ++i) {
-        const CompiledQuestion& q = spec_.questions[block.questions[i]];
-        const double c = frame.values[q.cumulant_signal];
-        if (std::isnan(c)) {  // missing cumulant: this question skips the update
-          step_delta_[i] = 0.0f;
-          continue;
-        }
-        const double delta =
-            c + gamma * static_cast<double>(v_next[i]) - static_cast<double>(v_now[i]);
-        step_delta_[i] = static_cast<float>(q.step_size * norm * delta);
-        any = true;
+        const size_t qi = block.questions[i];
+        next_answers_[qi] = answers[i];
+        s.greedy_actions[qi] = block.learner == LearnerKind::kQLambda ? greedy : -1;
       }
-      trace.DecayAndPrune(static_cast<float>(gamma * block.lambda));
-      trace.Accumulate(s.prev_x);
-      if (any) {
-        const float* __restrict ad = step_delta_.data();
-        for (uint32_t j : trace.active()) {
-          const float e = trace.value(j);
-          float* __restrict row = w.row(j);
-          for (size_t i = 0; i < nq; ++i) row[i] += e * ad[i];
-        }
+      continue;
+    }
+    // Continuation into the new frame.
+    double gamma_next = block.gamma;
+    bool continuation_known = true;
+    if (block.terminate_when.has_value()) {
+      const double v = frame.values[block.terminate_when->signal];
+      if (std::isnan(v)) {
+        continuation_known = false;
+      } else if (block.terminate_when->Holds(v)) {
+        gamma_next = 0.0;
       }
     }
-    w.Predict(next_x_, v_next);
-    for (size_t i = 0; i < nq; ++i) s.predictions[block.questions[i]] = v_next[i];
+    // Importance ratio (state values) or target distributions (action values).
+    BlockStep step;
+    step.x = &s.prev_x;
+    step.x_next = &next_x_;
+    step.gamma_next = gamma_next;
+    bool usable = continuation_known;
+    double pi_taken = 1.0;
+    if (block.action_valued) {
+      usable &= s.prev_action >= 0;
+      step.action = s.prev_action;
+      if (block.learner == LearnerKind::kTreeBackup && usable) {
+        PolicyDistribution(block.policy, s, s.prev_x, absl::MakeSpan(pi_now_));
+        pi_taken = pi_now_[static_cast<size_t>(s.prev_action)];
+      }
+      step.pi_now = pi_now_;
+      step.pi_next = pi_next_;
+    } else if (off_policy) {
+      usable &= s.prev_action >= 0 && !std::isnan(s.prev_behavior_prob);
+      if (usable) {
+        PolicyDistribution(block.policy, s, s.prev_x, absl::MakeSpan(pi_now_));
+        pi_taken = pi_now_[static_cast<size_t>(s.prev_action)];
+        double rho = pi_taken / s.prev_behavior_prob;
+        const double clip = spec_.questions[block.questions[0]].rho_clip;
+        if (clip > 0) rho = std::min(rho, clip);
+        step.rho = rho;
+      }
+    }
+    for (size_t i = 0; i < nq; ++i) {
+      const size_t qi = block.questions[i];
+      const CompiledCumulant& c = spec_.questions[qi].cumulant;
+      double value = kNaN;
+      switch (c.kind) {
+        case CumulantKind::kSignal:
+          value = frame.values[c.signal];
+          break;
+        case CumulantKind::kIndicator: {
+          const double v = frame.values[c.condition.signal];
+          value = std::isnan(v) ? kNaN : (c.condition.Holds(v) ? 1.0 : 0.0);
+          break;
+        }
+        case CumulantKind::kConstant:
+          value = c.constant;
+          break;
+        case CumulantKind::kFramePeriod:
+          if (now.has_value() && s.prev_time_micros.has_value() && *now > *s.prev_time_micros) {
+            value = static_cast<double>(*now - *s.prev_time_micros) * 1e-6;
+          }
+          break;
+        case CumulantKind::kQuestion:
+          value = next_answers_[c.question];
+          break;
+      }
+      trans_cumulant_[qi] = continuation_known ? value : kNaN;
+      trans_continuation_[qi] = gamma_next;
+      trans_pi_[qi] = usable ? pi_taken : 0.0;
+      cumulants_[i] = usable ? trans_cumulant_[qi] : kNaN;
+    }
+    step.cumulants = absl::MakeConstSpan(cumulants_.data(), nq);
+    learner_.Learn(block, spec_.questions, step, params, state, answers, &greedy);
+    for (size_t i = 0; i < nq; ++i) {
+      const size_t qi = block.questions[i];
+      next_answers_[qi] = answers[i];
+      s.greedy_actions[qi] = block.learner == LearnerKind::kQLambda ? greedy : -1;
+    }
   }
 
+  // Verified error: held predictions accumulate the transition's cumulant. For an
+  // off-policy question, a step the target policy would never take ends what it held.
   for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
     ReturnVerifier& verifier = s.verifiers[qi];
+    const CompiledQuestion& q = spec_.questions[qi];
     if (frame.restart) {
       verifier.Interrupt();
-    } else if (s.has_prev) {
-      verifier.Observe(frame.values[spec_.questions[qi].cumulant_signal]);
+    } else if (learn) {
+      const bool on_policy = q.policy.kind == PolicyKind::kBehavior && !q.control;
+      if (!on_policy && trans_pi_[qi] == 0.0) {
+        verifier.Interrupt();
+      } else {
+        verifier.Observe(trans_cumulant_[qi], trans_continuation_[qi]);
+      }
     }
-    verifier.Hold(s.predictions[qi]);
+    verifier.Hold(next_answers_[qi]);
   }
 
   std::swap(s.prev_x, next_x_);
+  std::copy(next_answers_.begin(), next_answers_.end(), s.answers.begin());
+  s.prev_action = frame.action.has_value() ? static_cast<int>(*frame.action) : -1;
+  if (s.prev_action < 0) {
+    s.prev_behavior_prob = kNaN;
+  } else if (spec_.estimate_behavior) {
+    s.prev_behavior_prob = EstimateBehavior(s, s.prev_action);
+  } else {
+    s.prev_behavior_prob = frame.behavior_prob.value_or(kNaN);
+  }
+  s.prev_time_micros = now;
   s.has_prev = true;
   s.last_seq = frame.seq;
   return absl::OkStatus();
@@ -139,7 +394,14 @@ bool Pool::has_stream(absl::string_view stream) const { return streams_.contains
 absl::Span<const double> Pool::predictions(absl::string_view stream) const {
   auto it = streams_.find(stream);
   if (it == streams_.end()) return {};
-  return it->second->predictions;
+  return it->second->answers;
+}
+
+const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const {
+  if (b >= spec_.blocks.size()) return nullptr;
+  if (spec_.pooled) return &pooled_params_[b];
+  auto it = streams_.find(stream);
+  return it == streams_.end() ? nullptr : &it->second->own_params[b];
 }
 
 absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const {
@@ -153,18 +415,44 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
   out->set_pool(name());
   out->set_stream(std::string(stream));
   out->set_as_of_seq(s.last_seq);
+  double norm_sq = 0;
+  for (float v : s.prev_x.value) norm_sq += static_cast<double>(v) * static_cast<double>(v);
+  std::vector<uint32_t> rows;
   for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
     const CompiledQuestion& q = spec_.questions[qi];
+    const BlockSpec& block = spec_.blocks[q.block];
+    const BlockParams& params = ParamsFor(s, q.block);
     v1::Prediction* p = out->add_predictions();
     p->set_question(q.name);
-    p->set_value(s.predictions[qi]);
+    p->set_value(s.answers[qi]);
     p->set_unit(q.unit);
+    if (q.control && s.greedy_actions[qi] >= 0) {
+      p->set_greedy_action(spec_.actions[static_cast<size_t>(s.greedy_actions[qi])]);
+    }
     const VerifiedErrorStats st = s.verifiers[qi].stats();
     v1::VerifiedError* ve = p->mutable_verified();
     ve->set_count(st.count);
     ve->set_rmse(st.rmse);
     ve->set_bias(st.bias);
     ve->set_window(st.window);
+    const QuestionCounters& c = params.counters()[q.index_in_block];
+    v1::QuestionProgress* pr = p->mutable_progress();
+    pr->set_updates(c.updates);
+    pr->set_skipped_missing(c.skipped_missing);
+    pr->set_divergence_resets(c.divergence_resets);
+    pr->set_step_scale(c.step_scale);
+    pr->set_behavior_estimated(spec_.estimate_behavior &&
+                               (q.policy.kind != PolicyKind::kBehavior) && !block.action_valued);
+    rows.clear();
+    const uint32_t stride = block.action_valued ? num_actions_ : 1;
+    for (uint32_t j : s.prev_x.index) {
+      for (uint32_t a = 0; a < stride; ++a) rows.push_back(j * stride + a);
+    }
+    double mean = 0, lo = 0, hi = 0;
+    params.StepSizeSummary(static_cast<uint32_t>(q.index_in_block), rows, norm_sq, &mean, &lo, &hi);
+    pr->set_step_size_mean(mean);
+    pr->set_step_size_min(lo);
+    pr->set_step_size_max(hi);
   }
   return absl::OkStatus();
 }

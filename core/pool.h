@@ -5,17 +5,17 @@
 #define BELLWETHER_CORE_POOL_H_
 
 #include <memory>
+#include <optional>
 #include <string>
-#include "absl/strings/string_view.h"
 #include <vector>
 
 #include "absl/container/flat_hash_map.h"
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
+#include "absl/strings/string_view.h"
 #include "bellwether/v1/prediction.pb.h"
 #include "core/frame_input.h"
-#include "core/learners/block_weights.h"
-#include "core/learners/sparse_trace.h"
+#include "core/learners/block_learner.h"
 #include "core/pool_spec.h"
 #include "core/progress/return_verifier.h"
 
@@ -26,6 +26,13 @@ class Pool {
   // Validates and compiles `spec`; errors name the field (see CompilePoolSpec).
   static absl::StatusOr<std::unique_ptr<Pool>> Create(const v1::PoolSpec& spec);
 
+  // A pool for `spec` that keeps what `old` learned for every question that is unchanged
+  // (same name and the same learning-relevant fields) when the signals, features,
+  // actions, time zone and learning mode are unchanged: weights, step sizes, counters and
+  // verified error. Traces restart. Added questions start fresh; removed ones are dropped.
+  static absl::StatusOr<std::unique_ptr<Pool>> CreateFrom(const Pool& old,
+                                                          const v1::PoolSpec& spec);
+
   Pool(const Pool&) = delete;
   Pool& operator=(const Pool&) = delete;
 
@@ -34,15 +41,12 @@ class Pool {
 
   // Applies one frame of `stream` (created on its first frame). The frame must have
   // `frame.values.size()` equal to the pool's signal count (FrameFromProto guarantees
-  // it) and a seq greater than the stream's last. On error nothing changes.
+  // it), a seq greater than the stream's last, and an action (if any) below the number
+  // of declared actions. On error nothing changes.
   //
   // For the transition from the stream's previous frame t to this frame t+1 (skipped
-  // when this frame has `restart` set or is the stream's first), every question learns
-  // by TD(lambda) with accumulating traces (Sutton & Barto 2nd ed., Section 12.2):
-  //   delta = c_{t+1} + gamma * v(x_{t+1}) - v(x_t)
-  //   e     = gamma * lambda * e + x_t
-  //   w    += (alpha / |x_t|) * delta * e
-  // then predicts v(x_{t+1}) with the updated weights.
+  // when this frame has `restart` set or is the stream's first), every block of
+  // questions learns (see block_learner.h), in dependency order, then answers at t+1.
   absl::Status Apply(absl::string_view stream, const FrameInput& frame);
 
   // Last applied seq of `stream`, 0 if the pool has not seen it.
@@ -50,34 +54,58 @@ class Pool {
   bool has_stream(absl::string_view stream) const;
   size_t num_streams() const { return streams_.size(); }
 
-  // The stream's answers as of its last applied frame. NOT_FOUND if unknown.
+  // The stream's answers as of its last applied frame, with verified error and
+  // progress. NOT_FOUND if unknown.
   absl::Status GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const;
 
-  // Current predictions of `stream` in question order (empty span if unknown).
+  // Current answers of `stream` in question order (empty span if unknown).
   absl::Span<const double> predictions(absl::string_view stream) const;
+
+  // Learned parameters of block `b` for `stream` (the pool's own when pooled); nullptr
+  // if unknown. For tests and diagnostics.
+  const BlockParams* block_params(absl::string_view stream, size_t b) const;
 
  private:
   struct StreamState {
     uint64_t last_seq = 0;
     bool has_prev = false;  // prev_x is a frame we may learn from
     SparseFeatures prev_x;
-    std::vector<double> predictions;        // per question, made at the last frame
-    std::vector<SparseTrace> traces;        // per block
-    std::vector<BlockWeights> own_weights;  // per block, per-stream learning only
-    std::vector<ReturnVerifier> verifiers;  // per question
+    int prev_action = -1;
+    double prev_behavior_prob = 0;  // NaN if unknown
+    std::optional<int64_t> prev_time_micros;  // absolute
+    std::vector<double> answers;        // per question, at the last frame
+    std::vector<int> greedy_actions;    // per question (control questions), -1 otherwise
+    std::vector<BlockTraceState> block_states;  // per block
+    std::vector<BlockParams> own_params;        // per block, per-stream learning only
+    std::vector<ReturnVerifier> verifiers;      // per question
+    std::vector<uint32_t> behavior_counts;      // (cells + 1) x actions, when estimating
   };
 
   explicit Pool(CompiledPoolSpec spec);
   StreamState& GetOrCreateStream(absl::string_view stream);
+  BlockParams& ParamsFor(StreamState& s, size_t b);
+  const BlockParams& ParamsFor(const StreamState& s, size_t b) const;
+  // pi(.|x) of a target policy into `out` (size num_actions); false if not defined.
+  void PolicyDistribution(const CompiledPolicy& policy, StreamState& s, const SparseFeatures& x,
+                          absl::Span<double> out);
+  double EstimateBehavior(StreamState& s, int action);
+  std::optional<int64_t> AbsoluteTime(const FrameInput& frame) const;
 
   CompiledPoolSpec spec_;
-  std::vector<BlockWeights> pooled_weights_;  // per block, pooled learning only
+  uint32_t num_actions_;
+  std::vector<BlockParams> pooled_params_;  // per block, pooled learning only
+  FeatureRecipe::NormalizerState normalizer_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamState>> streams_;
 
   // Scratch reused across frames (the writer is single-threaded): no allocation per frame.
+  BlockLearner learner_;
   std::vector<double> extended_;
   SparseFeatures next_x_;
-  std::vector<float> v_now_, v_next_, step_delta_;
+  std::vector<double> next_answers_;   // per question, at the new frame
+  std::vector<double> cumulants_;      // per question of the current block
+  std::vector<double> block_answers_;  // per question of the current block
+  std::vector<double> trans_cumulant_, trans_continuation_, trans_pi_;  // per question
+  std::vector<double> pi_now_, pi_next_, q_values_;
 };
 
 }  // namespace bellwether

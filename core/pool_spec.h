@@ -3,6 +3,7 @@
 #define BELLWETHER_CORE_POOL_SPEC_H_
 
 #include <memory>
+#include <optional>
 #include <string>
 #include <vector>
 
@@ -14,23 +15,79 @@
 namespace bellwether {
 
 inline constexpr double kDefaultStepSize = 0.1;
+inline constexpr double kDefaultMetaStepSize = 0.01;
+
+enum class CompareOp { kLess, kLessEqual, kGreater, kGreaterEqual };
+
+// `signal op threshold` on a frame's declared signal.
+struct CompiledCondition {
+  size_t signal = 0;
+  CompareOp op = CompareOp::kLess;
+  double threshold = 0;
+
+  // Whether it holds for `value` (a NaN value never holds).
+  bool Holds(double value) const;
+  bool operator==(const CompiledCondition&) const = default;
+};
+
+enum class CumulantKind { kSignal, kIndicator, kConstant, kFramePeriod, kQuestion };
+
+struct CompiledCumulant {
+  CumulantKind kind = CumulantKind::kSignal;
+  size_t signal = 0;             // kSignal
+  CompiledCondition condition;   // kIndicator
+  double constant = 0;           // kConstant
+  size_t question = 0;           // kQuestion: index of the question it reads
+};
+
+enum class PolicyKind { kBehavior, kAction, kDistribution, kGreedy };
+
+struct CompiledPolicy {
+  PolicyKind kind = PolicyKind::kBehavior;
+  uint32_t action = 0;               // kAction
+  std::vector<double> probabilities;  // kDistribution, one per action
+  size_t control_question = 0;       // kGreedy
+
+  bool operator==(const CompiledPolicy&) const = default;
+};
+
+enum class LearnerKind { kTd, kTrueOnlineTd, kTdc, kEmphaticTd, kTreeBackup, kQLambda };
+enum class StepRuleKind { kFixed, kAutostep, kTidbd };
 
 struct CompiledQuestion {
   std::string name;
   std::string unit;
-  size_t cumulant_signal = 0;  // index into the declared signals
+  CompiledCumulant cumulant;
   double gamma = 0;
+  std::optional<CompiledCondition> terminate_when;
+  CompiledPolicy policy;
   double lambda = 0;
+  LearnerKind learner = LearnerKind::kTd;
+  StepRuleKind step_rule = StepRuleKind::kAutostep;
   double step_size = kDefaultStepSize;
+  double secondary_step_size = kDefaultStepSize;
+  double meta_step_size = kDefaultMetaStepSize;
+  double rho_clip = 0;  // 0: none
+  bool control = false;
+  // Evaluation order: a question comes after every question it reads.
+  int level = 0;
   size_t block = 0;           // which block it belongs to
   size_t index_in_block = 0;  // its column in the block's weights
 };
 
-// Questions sharing continuation and trace decay: one weight matrix (feature-major,
-// a column per question) and one trace per stream.
+// Questions that share target policy, continuation, lambda, learner, step rule and
+// evaluation level: one weight matrix (feature-major, a column per question) and one
+// trace per stream. Control questions each form their own block.
 struct BlockSpec {
+  CompiledPolicy policy;
   double gamma = 0;
+  std::optional<CompiledCondition> terminate_when;
   double lambda = 0;
+  LearnerKind learner = LearnerKind::kTd;
+  StepRuleKind step_rule = StepRuleKind::kAutostep;
+  double shared_step_size = 0;  // TRUE_ONLINE_TD: the block's one step size
+  int level = 0;
+  bool action_valued = false;   // TREE_BACKUP and control questions learn q(s, a)
   std::vector<size_t> questions;  // indices into CompiledPoolSpec::questions
 };
 
@@ -39,18 +96,27 @@ struct CompiledPoolSpec {
   absl::TimeZone time_zone;
   std::vector<std::string> signal_names;  // declared order
   std::vector<std::string> signal_units;
+  std::vector<std::string> actions;
   std::shared_ptr<const FeatureRecipe> recipe;
   std::vector<CompiledQuestion> questions;
-  std::vector<BlockSpec> blocks;
+  std::vector<BlockSpec> blocks;  // in evaluation order (by level)
   bool pooled = false;
+  // Behavior probabilities are estimated (not carried by frames).
+  bool estimate_behavior = false;
+  std::shared_ptr<const TileCoder> behavior_cells;  // coarse tiling for the estimate
+  std::vector<size_t> behavior_cell_inputs;          // extended-signal indices
 
   // Declared signals plus clock signals.
   size_t num_extended_signals() const;
+  // Whether any question needs frames' actions.
+  bool needs_actions() const;
 };
 
 // Checks every field of `spec` and compiles it. Errors are INVALID_ARGUMENT with the
 // pool name, the field path and the reason, e.g.
-//   "pool grid: questions[0] (demand_next_12h): gamma 1.2 is outside [0, 1]".
+//   "pool grid: questions[0] (demand_next_12h).gamma: 1.2 is outside [0, 1]".
+// Question dependencies (a cumulant reading another question, a greedy target policy)
+// must form no cycle; a cycle is named: "questions: cycle a -> b -> a".
 absl::StatusOr<CompiledPoolSpec> CompilePoolSpec(const v1::PoolSpec& spec);
 
 }  // namespace bellwether

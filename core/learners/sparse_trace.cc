@@ -24,11 +24,12 @@ void SparseTrace::DecayAndPrune(float decay) {
   active_.resize(kept);
 }
 
-void SparseTrace::Accumulate(const SparseFeatures& x) {
+void SparseTrace::Accumulate(const SparseFeatures& x, float scale, uint32_t stride,
+                             uint32_t offset) {
   for (size_t k = 0; k < x.size(); ++k) {
-    const uint32_t j = x.index[k];
+    const uint32_t j = x.index[k] * stride + offset;
     if (e_[j] == 0.0f) active_.push_back(j);
-    e_[j] += x.value[k];
+    e_[j] += scale * x.value[k];
     // A listed entry must stay non-zero until the next decay prunes it, or a later
     // Accumulate would list it twice; an exact cancellation keeps the smallest normal
     // float instead (far below the pruning threshold, so it is dropped at the next decay).

@@ -19,8 +19,10 @@ class SparseTrace {
 
   // e <- decay * e, then entries below the pruning threshold are dropped.
   void DecayAndPrune(float decay);
-  // Accumulating trace: e[x_j] += x_j value.
-  void Accumulate(const SparseFeatures& x);
+  // Accumulating trace: e[row(x_j)] += scale * x_j value, where row(j) = j * stride +
+  // offset (stride 1, offset 0 for state values; the action's column for action values).
+  void Accumulate(const SparseFeatures& x, float scale = 1.0f, uint32_t stride = 1,
+                  uint32_t offset = 0);
   // e <- 0.
   void Clear();
 

@@ -6,7 +6,7 @@
 namespace bellwether {
 
 ReturnVerifier::ReturnVerifier(double gamma, size_t max_held, size_t window)
-    : gamma_(gamma), errors_(std::max<size_t>(window, 1), 0.0) {
+    : errors_(std::max<size_t>(window, 1), 0.0) {
   size_t k = 0;
   double d = 1.0;
   while (d >= kDiscountFloor && k < max_held) {
@@ -17,7 +17,7 @@ ReturnVerifier::ReturnVerifier(double gamma, size_t max_held, size_t window)
   held_.resize(horizon_ + 1);
 }
 
-void ReturnVerifier::Observe(double c) {
+void ReturnVerifier::Observe(double c, double continuation) {
   if (std::isnan(c)) {
     totals_.unverifiable += held_count_;
     held_count_ = 0;
@@ -28,7 +28,7 @@ void ReturnVerifier::Observe(double c) {
   for (size_t i = 0; i < held_count_; ++i) {
     Held& h = held_[(held_start_ + i) % cap];
     h.realized += h.discount * c;
-    h.discount *= gamma_;
+    h.discount *= continuation;
     ++h.steps;
   }
   // Oldest first: it has the smallest remaining discount.

@@ -18,10 +18,11 @@ struct VerifiedErrorStats {
   uint32_t window = 0;      // verified predictions in the window
 };
 
-// For a prediction v_t of G_t = sum_k gamma^k c_{t+k+1} (constant gamma), the realized
-// return accumulates as cumulants arrive; once the remaining discount gamma^k falls below
-// kDiscountFloor the tail is negligible and the prediction is verified. Memory is fixed at
-// construction: a ring of held predictions and a ring of recent errors.
+// For a prediction v_t of G_t = sum_k (prod_{i<=k} gamma_{t+i}) c_{t+k+1}, the realized
+// return accumulates as cumulants arrive; once the remaining discount falls below
+// kDiscountFloor (a termination makes it 0) the tail is negligible and the prediction is
+// verified. Memory is fixed at construction: a ring of held predictions and a ring of
+// recent errors.
 class ReturnVerifier {
  public:
   static constexpr double kDiscountFloor = 1e-3;
@@ -31,14 +32,16 @@ class ReturnVerifier {
   explicit ReturnVerifier(double gamma, size_t max_held = kDefaultMaxHeld,
                           size_t window = kDefaultWindow);
 
-  // Steps held before a return counts as realized: the smallest k with gamma^k below
-  // the floor, capped at max_held.
+  // Steps held at most: the smallest k with gamma^k below the floor (gamma the
+  // question's constant continuation), capped at max_held. A return cut at the cap is
+  // counted as truncated.
   size_t horizon() const { return horizon_; }
 
-  // A transition happened with cumulant `c` (NaN when it is missing). Held predictions
-  // accumulate it; those whose remaining discount fell below the floor are verified.
-  // A missing cumulant makes every held prediction unverifiable.
-  void Observe(double c);
+  // A transition happened with cumulant `c` (NaN when it is missing) and continuation
+  // `continuation` into the new frame. Held predictions accumulate c; those whose
+  // remaining discount fell below the floor are verified. A missing cumulant makes every
+  // held prediction unverifiable.
+  void Observe(double c, double continuation);
   // The stream restarted: held predictions can never be completed.
   void Interrupt();
   // Holds a new prediction made at the current frame.
@@ -57,7 +60,6 @@ class ReturnVerifier {
   };
   void Verify(const Held& h, bool truncated);
 
-  double gamma_;
   size_t horizon_;
   std::vector<Held> held_;  // ring
   size_t held_start_ = 0;

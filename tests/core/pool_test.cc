@@ -35,6 +35,7 @@ v1::PoolSpec OneHotSpec(int states, double gamma, double lambda, double step) {
   q->set_gamma(gamma);
   q->set_lambda(lambda);
   q->set_step_size(step);
+  q->set_step_rule(v1::FIXED);
   return spec;
 }
 

@@ -32,7 +32,7 @@ TEST(ReturnVerifier, MatchesAnIndependentComputationOfTruncatedReturns) {
   // Prediction at t, then cumulant c[t+1] arrives, ...
   v.Hold(pred[0]);
   for (int t = 1; t <= n; ++t) {
-    v.Observe(c[t]);
+    v.Observe(c[t], gamma);
     v.Hold(pred[t]);
   }
   // Independent computation: G_t = sum_{k<h} gamma^k c[t+k+1] for every t with t+h <= n.
@@ -58,13 +58,13 @@ TEST(ReturnVerifier, MatchesAnIndependentComputationOfTruncatedReturns) {
 TEST(ReturnVerifier, RestartAndMissingCumulantMakeHeldPredictionsUnverifiable) {
   ReturnVerifier v(0.5);
   v.Hold(1.0);
-  v.Observe(1.0);
+  v.Observe(1.0, 0.5);
   v.Hold(2.0);
   v.Interrupt();
   EXPECT_EQ(v.stats().unverifiable, 2u);
   EXPECT_EQ(v.stats().count, 0u);
   v.Hold(1.0);
-  v.Observe(std::nan(""));
+  v.Observe(std::nan(""), 0.5);
   EXPECT_EQ(v.stats().unverifiable, 3u);
 }
 
@@ -72,7 +72,7 @@ TEST(ReturnVerifier, WindowKeepsOnlyRecentErrors) {
   ReturnVerifier v(0.0, 10, 4);  // gamma 0: the return is the next cumulant
   for (int t = 0; t < 10; ++t) {
     v.Hold(t < 6 ? 100.0 : 1.0);
-    v.Observe(1.0);
+    v.Observe(1.0, 0.5);
   }
   const VerifiedErrorStats s = v.stats();
   EXPECT_EQ(s.count, 10u);

@@ -29,7 +29,8 @@ constexpr char kSpec[] = R"json({
               {"name": "reward", "min": 0, "max": 1}],
   "features": [{"tiles": {"signals": ["state"], "tilings": 1, "tilesPerDim": 7}}],
   "questions": [{"name": "value", "cumulant": {"signal": "reward"},
-                 "gamma": 1.0, "lambda": LAMBDA, "stepSize": 0.002}]
+                 "gamma": 1.0, "lambda": LAMBDA, "stepSize": 0.002,
+                 "stepRule": "FIXED"}]
 })json";
 
 // Writes `episodes` episodes. Each frame is a state with the reward of

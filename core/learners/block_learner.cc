@@ -1,0 +1,512 @@
+#include "core/learners/block_learner.h"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+
+namespace bellwether {
+namespace {
+
+// Autostep's time scale for its running normalizer (the published default).
+constexpr float kAutostepTau = 1e4f;
+// TIDBD's log step sizes stay within [log 1e-9, log 1].
+constexpr float kMinLogStep = -20.7f;
+constexpr float kMaxLogStep = 0.0f;
+// Updates between snapshots of sound weights for the divergence guard.
+constexpr uint64_t kSnapshotEvery = 1000;
+// A prediction beyond this multiple of the largest plausible return is divergence.
+constexpr double kDivergenceFactor = 10.0;
+constexpr double kMaxHorizon = 1e4;
+
+bool UsesPerWeightSteps(StepRuleKind r) {
+  return r == StepRuleKind::kAutostep || r == StepRuleKind::kTidbd;
+}
+
+double NormSq(const SparseFeatures& x) {
+  double s = 0;
+  for (float v : x.value) s += static_cast<double>(v) * static_cast<double>(v);
+  return s;
+}
+
+// Greedy distribution over `q` (ties split evenly) into `pi`; returns an argmax.
+int Greedy(absl::Span<const double> q, absl::Span<double> pi) {
+  double best = -std::numeric_limits<double>::infinity();
+  for (double v : q) best = std::max(best, v);
+  int count = 0, first = 0;
+  for (size_t a = 0; a < q.size(); ++a) {
+    if (q[a] == best) {
+      if (count == 0) first = static_cast<int>(a);
+      ++count;
+    }
+  }
+  for (size_t a = 0; a < q.size(); ++a) pi[a] = q[a] == best ? 1.0 / count : 0.0;
+  if (count == 0) {  // all NaN: uniform
+    for (double& p : pi) p = 1.0 / static_cast<double>(pi.size());
+  }
+  return first;
+}
+
+}  // namespace
+
+BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
+                         const FeatureRecipe& recipe, uint32_t num_actions)
+    : rows_(recipe.num_features() * (spec.action_valued ? num_actions : 1)),
+      cols_(static_cast<uint32_t>(spec.questions.size())) {
+  const size_t n = static_cast<size_t>(rows_) * cols_;
+  w_.assign(n, 0.0f);
+  good_w_.assign(n, 0.0f);
+  if (spec.learner == LearnerKind::kTdc) aux_.assign(n, 0.0f);
+  counters_.resize(cols_);
+  initial_alpha_.resize(cols_);
+  for (uint32_t c = 0; c < cols_; ++c) {
+    const CompiledQuestion& q = questions[spec.questions[c]];
+    initial_alpha_[c] = static_cast<float>(q.step_size / recipe.expected_norm_sq());
+  }
+  if (UsesPerWeightSteps(spec.step_rule)) {
+    alpha_.resize(n);
+    for (size_t r = 0; r < rows_; ++r) {
+      for (uint32_t c = 0; c < cols_; ++c) {
+        alpha_[r * cols_ + c] = spec.step_rule == StepRuleKind::kTidbd
+                                    ? std::log(initial_alpha_[c])
+                                    : initial_alpha_[c];
+      }
+    }
+    ss_h_.assign(n, 0.0f);
+    if (spec.step_rule == StepRuleKind::kAutostep) ss_v_.assign(n, 0.0f);
+  }
+}
+
+void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, uint32_t to_col) {
+  auto copy = [&](const std::vector<float>& src, std::vector<float>& dst) {
+    if (src.empty() || dst.empty()) return;
+    for (uint32_t r = 0; r < rows_; ++r) {
+      dst[static_cast<size_t>(r) * cols_ + to_col] = src[static_cast<size_t>(r) * other.cols_ + from_col];
+    }
+  };
+  copy(other.w_, w_);
+  copy(other.good_w_, good_w_);
+  copy(other.aux_, aux_);
+  copy(other.alpha_, alpha_);
+  copy(other.ss_h_, ss_h_);
+  copy(other.ss_v_, ss_v_);
+  counters_[to_col] = other.counters_[from_col];
+}
+
+void BlockParams::StepSizeSummary(uint32_t q, absl::Span<const uint32_t> rows, double norm_sq,
+                                  double* mean, double* min, double* max) const {
+  const double scale = counters_[q].step_scale;
+  if (alpha_.empty()) {
+    const double a = norm_sq > 0 ? static_cast<double>(initial_alpha_[q]) / norm_sq : 0.0;
+    *mean = *min = *max = a * scale;
+    return;
+  }
+  // alpha_ holds log steps for TIDBD (negative), steps for Autostep (positive).
+  double sum = 0, lo = std::numeric_limits<double>::infinity(), hi = 0;
+  for (uint32_t r : rows) {
+    float a = alpha_[static_cast<size_t>(r) * cols_ + q];
+    if (a <= 0.0f) a = std::exp(a);
+    sum += static_cast<double>(a);
+    lo = std::min(lo, static_cast<double>(a));
+    hi = std::max(hi, static_cast<double>(a));
+  }
+  *mean = rows.empty() ? 0.0 : sum / static_cast<double>(rows.size());
+  *min = rows.empty() ? 0.0 : lo;
+  *max = hi;
+}
+
+BlockLearner::BlockLearner(uint32_t max_rows, uint32_t max_cols, uint32_t num_actions)
+    : num_actions_(std::max<uint32_t>(num_actions, 1)) {
+  v_.resize(max_cols);
+  v_next_.resize(max_cols);
+  delta_.resize(max_cols);
+  scratch_.resize(max_cols * 4);
+  dscratch_.resize(max_cols * 4);
+  pi_buf_.resize(num_actions_ * 2);
+  q_buf_.resize(num_actions_ * 2);
+  x_dense_.assign(max_rows, 0.0f);
+  xn_dense_.assign(max_rows, 0.0f);
+}
+
+void BlockLearner::PredictRows(const BlockParams& p, const SparseFeatures& x, int action,
+                               float* out) const {
+  const uint32_t nq = p.cols();
+  std::fill(out, out + nq, 0.0f);
+  const uint32_t stride = action >= 0 ? num_actions_ : 1;
+  const uint32_t offset = action >= 0 ? static_cast<uint32_t>(action) : 0;
+  for (size_t k = 0; k < x.size(); ++k) {
+    const float xj = x.value[k];
+    const float* __restrict w = p.row(x.index[k] * stride + offset);
+    for (uint32_t q = 0; q < nq; ++q) out[q] += xj * w[q];
+  }
+}
+
+void BlockLearner::ActionValues(const SparseFeatures& x, const BlockParams& params, uint32_t q,
+                                absl::Span<double> out) const {
+  for (uint32_t a = 0; a < num_actions_; ++a) {
+    double sum = 0;
+    for (size_t k = 0; k < x.size(); ++k) {
+      sum += static_cast<double>(x.value[k]) *
+             static_cast<double>(params.row(x.index[k] * num_actions_ + a)[q]);
+    }
+    out[a] = sum;
+  }
+}
+
+void BlockLearner::Answer(const BlockSpec& spec, const SparseFeatures& x,
+                          absl::Span<const double> pi, const BlockParams& params,
+                          absl::Span<double> answers, int* greedy_action) {
+  const uint32_t nq = params.cols();
+  if (!spec.action_valued) {
+    PredictRows(params, x, -1, v_.data());
+    for (uint32_t q = 0; q < nq; ++q) answers[q] = v_[q];
+    return;
+  }
+  const auto qv = absl::MakeSpan(q_buf_.data(), num_actions_);
+  const auto greedy_pi = absl::MakeSpan(pi_buf_.data(), num_actions_);
+  for (uint32_t q = 0; q < nq; ++q) {
+    ActionValues(x, params, q, qv);
+    if (spec.learner == LearnerKind::kQLambda) {
+      const int g = Greedy(qv, greedy_pi);
+      answers[q] = qv[static_cast<size_t>(g)];
+      if (greedy_action != nullptr) *greedy_action = g;
+    } else {
+      double sum = 0;
+      for (uint32_t a = 0; a < num_actions_; ++a) sum += pi[a] * qv[a];
+      answers[q] = sum;
+    }
+  }
+}
+
+void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
+                         const BlockStep& step, BlockParams& p, BlockTraceState& state,
+                         absl::Span<double> answers, int* greedy_action) {
+  const uint32_t nq = p.cols();
+  const SparseFeatures& x = *step.x;
+  const SparseFeatures& xn = *step.x_next;
+  const double norm_sq = NormSq(x);
+  const double gl = state.gamma_t * spec.lambda;
+  const double gamma_next = step.gamma_next;
+  const uint32_t A = num_actions_;
+
+  // Target distributions for action values: fixed by the caller, or greedy (control).
+  double pi_taken = 1.0;
+  const double* pi_next = step.pi_next.data();
+  if (spec.action_valued) {
+    const auto q_now = absl::MakeSpan(q_buf_.data(), A);
+    const auto pi_now_buf = absl::MakeSpan(pi_buf_.data(), A);
+    const auto pi_next_buf = absl::MakeSpan(pi_buf_.data() + A, A);
+    if (spec.learner == LearnerKind::kQLambda) {
+      ActionValues(x, p, 0, q_now);
+      Greedy(q_now, pi_now_buf);
+      pi_taken = pi_now_buf[static_cast<size_t>(step.action)];
+      ActionValues(xn, p, 0, absl::MakeSpan(q_buf_.data() + A, A));
+      Greedy(absl::MakeConstSpan(q_buf_.data() + A, A), pi_next_buf);
+      pi_next = pi_next_buf.data();
+    } else {
+      pi_taken = step.pi_now[static_cast<size_t>(step.action)];
+    }
+  }
+
+  // Predictions before the update: v(x_t) (or q(S_t, A_t)) and the bootstrap target.
+  if (spec.action_valued) {
+    PredictRows(p, x, step.action, v_.data());
+    for (uint32_t q = 0; q < nq; ++q) {
+      double backup = 0;
+      for (uint32_t a = 0; a < A; ++a) {
+        if (pi_next[a] == 0.0) continue;
+        double qa = 0;
+        for (size_t k = 0; k < xn.size(); ++k) {
+          qa += static_cast<double>(xn.value[k]) *
+                static_cast<double>(p.row(xn.index[k] * A + a)[q]);
+        }
+        backup += pi_next[a] * qa;
+      }
+      v_next_[q] = static_cast<float>(backup);
+    }
+  } else {
+    PredictRows(p, x, -1, v_.data());
+    PredictRows(p, xn, -1, v_next_.data());
+  }
+
+  // TD errors; a missing cumulant skips the question.
+  bool any = false;
+  for (uint32_t q = 0; q < nq; ++q) {
+    QuestionCounters& counters = p.counters_[q];
+    const double c = step.cumulants[q];
+    if (std::isnan(c) || norm_sq <= 0.0) {
+      delta_[q] = 0.0f;
+      dscratch_[q] = 0.0;  // mask: skip
+      ++counters.skipped_missing;
+      continue;
+    }
+    counters.max_abs_cumulant = std::max(counters.max_abs_cumulant, std::fabs(c));
+    const double delta =
+        c + gamma_next * static_cast<double>(v_next_[q]) - static_cast<double>(v_[q]);
+    delta_[q] = static_cast<float>(delta);
+    dscratch_[q] = 1.0;
+    ++counters.updates;
+    any = true;
+  }
+
+  // Trace.
+  SparseTrace& e = state.trace;
+  const float rho = static_cast<float>(step.rho);
+  double dutch_alpha = 0;
+  switch (spec.learner) {
+    case LearnerKind::kTd:
+    case LearnerKind::kTdc:
+      e.DecayAndPrune(static_cast<float>(step.rho * gl));
+      if (rho != 0.0f) e.Accumulate(x, rho);
+      break;
+    case LearnerKind::kEmphaticTd: {
+      state.follow_on = state.rho_prev * state.gamma_t * state.follow_on + 1.0;
+      const double m = spec.lambda + (1.0 - spec.lambda) * state.follow_on;
+      state.rho_prev = step.rho;
+      e.DecayAndPrune(static_cast<float>(step.rho * gl));
+      if (rho != 0.0f) e.Accumulate(x, static_cast<float>(step.rho * m));
+      break;
+    }
+    case LearnerKind::kTrueOnlineTd: {
+      double scale = 1.0;
+      for (uint32_t q = 0; q < nq; ++q) scale = std::min(scale, p.counters_[q].step_scale);
+      dutch_alpha = norm_sq > 0 ? spec.shared_step_size * scale / norm_sq : 0.0;
+      double ex = 0;
+      for (size_t k = 0; k < x.size(); ++k) {
+        ex += static_cast<double>(e.value(x.index[k])) * static_cast<double>(x.value[k]);
+      }
+      e.DecayAndPrune(static_cast<float>(gl));
+      e.Accumulate(x, static_cast<float>(1.0 - dutch_alpha * gl * ex));
+      break;
+    }
+    case LearnerKind::kTreeBackup:
+    case LearnerKind::kQLambda:
+      e.DecayAndPrune(static_cast<float>(gl * pi_taken));
+      e.Accumulate(x, 1.0f, A, static_cast<uint32_t>(step.action));
+      break;
+  }
+
+  // Weights.
+  if (any) {
+    const std::vector<uint32_t>& rows = e.active();
+    if (spec.learner == LearnerKind::kTrueOnlineTd) {
+      float* a1 = scratch_.data();
+      float* a2 = scratch_.data() + nq;
+      for (uint32_t q = 0; q < nq; ++q) {
+        const double vq = v_[q];
+        const double dv = vq - state.v_old[q];
+        a1[q] = static_cast<float>(dscratch_[q] * dutch_alpha * (static_cast<double>(delta_[q]) + dv));
+        a2[q] = static_cast<float>(dscratch_[q] * dutch_alpha * dv);
+        if (dscratch_[q] != 0.0) state.v_old[q] = v_next_[q];
+      }
+      for (uint32_t r : rows) {
+        const float er = e.value(r);
+        float* __restrict w = p.row(r);
+        for (uint32_t q = 0; q < nq; ++q) w[q] += er * a1[q];
+      }
+      for (size_t k = 0; k < x.size(); ++k) {
+        const float xk = x.value[k];
+        float* __restrict w = p.row(x.index[k]);
+        for (uint32_t q = 0; q < nq; ++q) w[q] -= xk * a2[q];
+      }
+    } else if (spec.learner == LearnerKind::kTdc) {
+      float* eh = scratch_.data();
+      float* hx = scratch_.data() + nq;
+      float* ad = scratch_.data() + 2 * nq;
+      float* bd = scratch_.data() + 3 * nq;
+      std::fill(eh, eh + nq, 0.0f);
+      std::fill(hx, hx + nq, 0.0f);
+      for (uint32_t r : rows) {
+        const float er = e.value(r);
+        const float* h = &p.aux_[static_cast<size_t>(r) * nq];
+        for (uint32_t q = 0; q < nq; ++q) eh[q] += er * h[q];
+      }
+      for (size_t k = 0; k < x.size(); ++k) {
+        const float xk = x.value[k];
+        const float* h = &p.aux_[static_cast<size_t>(x.index[k]) * nq];
+        for (uint32_t q = 0; q < nq; ++q) hx[q] += xk * h[q];
+      }
+      for (uint32_t q = 0; q < nq; ++q) {
+        const CompiledQuestion& cq = questions[spec.questions[q]];
+        const double s = dscratch_[q] * p.counters_[q].step_scale / norm_sq;
+        ad[q] = static_cast<float>(s * cq.step_size);
+        bd[q] = static_cast<float>(s * cq.secondary_step_size);
+      }
+      const float corr = static_cast<float>(gamma_next * (1.0 - spec.lambda));
+      for (uint32_t r : rows) {
+        const float er = e.value(r);
+        float* __restrict w = p.row(r);
+        float* __restrict h = &p.aux_[static_cast<size_t>(r) * nq];
+        for (uint32_t q = 0; q < nq; ++q) {
+          w[q] += ad[q] * delta_[q] * er;
+          h[q] += bd[q] * delta_[q] * er;
+        }
+      }
+      for (size_t k = 0; k < xn.size(); ++k) {
+        const float xk = xn.value[k];
+        float* __restrict w = p.row(xn.index[k]);
+        for (uint32_t q = 0; q < nq; ++q) w[q] -= ad[q] * corr * eh[q] * xk;
+      }
+      for (size_t k = 0; k < x.size(); ++k) {
+        const float xk = x.value[k];
+        float* __restrict h = &p.aux_[static_cast<size_t>(x.index[k]) * nq];
+        for (uint32_t q = 0; q < nq; ++q) h[q] -= bd[q] * hx[q] * xk;
+      }
+    } else if (UsesPerWeightSteps(spec.step_rule)) {
+      // Feature values by row for x_t and the discounted expected next features.
+      const uint32_t stride = spec.action_valued ? A : 1;
+      const uint32_t off = spec.action_valued ? static_cast<uint32_t>(step.action) : 0;
+      for (size_t k = 0; k < x.size(); ++k) x_dense_[x.index[k] * stride + off] += x.value[k];
+      for (size_t k = 0; k < xn.size(); ++k) {
+        if (spec.action_valued) {
+          for (uint32_t a = 0; a < A; ++a) {
+            xn_dense_[xn.index[k] * A + a] += static_cast<float>(pi_next[a]) * xn.value[k];
+          }
+        } else {
+          xn_dense_[xn.index[k]] += xn.value[k];
+        }
+      }
+      ApplyStepRule(spec, questions, step, norm_sq, e, p);
+      for (size_t k = 0; k < x.size(); ++k) x_dense_[x.index[k] * stride + off] = 0.0f;
+      for (size_t k = 0; k < xn.size(); ++k) {
+        if (spec.action_valued) {
+          for (uint32_t a = 0; a < A; ++a) xn_dense_[xn.index[k] * A + a] = 0.0f;
+        } else {
+          xn_dense_[xn.index[k]] = 0.0f;
+        }
+      }
+    } else {
+      // FIXED: w_r += e_r * (alpha_q delta_q) for every row r in the trace.
+      float* ad = scratch_.data();
+      for (uint32_t q = 0; q < nq; ++q) {
+        const CompiledQuestion& cq = questions[spec.questions[q]];
+        ad[q] = static_cast<float>(dscratch_[q] * cq.step_size * p.counters_[q].step_scale /
+                                   norm_sq * static_cast<double>(delta_[q]));
+      }
+      for (uint32_t r : rows) {
+        const float er = e.value(r);
+        float* __restrict w = p.row(r);
+        for (uint32_t q = 0; q < nq; ++q) w[q] += er * ad[q];
+      }
+    }
+  }
+  state.gamma_t = gamma_next;
+
+  // Answers at S_{t+1} with the updated weights (restored ones after a guard reset).
+  const auto pi_answer = absl::MakeConstSpan(pi_next, spec.action_valued ? A : 0);
+  Answer(spec, xn, pi_answer, p, answers, greedy_action);
+  if (Guard(spec, questions, p, state, answers)) {
+    Answer(spec, xn, pi_answer, p, answers, greedy_action);
+  }
+}
+
+void BlockLearner::ApplyStepRule(const BlockSpec& spec,
+                                 const std::vector<CompiledQuestion>& questions,
+                                 const BlockStep& step, double /*norm_sq*/,
+                                 const SparseTrace& e, BlockParams& p) {
+  const uint32_t nq = p.cols();
+  const std::vector<uint32_t>& rows = e.active();
+  const float gamma_next = static_cast<float>(step.gamma_next);
+  float* meta = scratch_.data();
+  float* msum = scratch_.data() + nq;
+  for (uint32_t q = 0; q < nq; ++q) {
+    meta[q] = static_cast<float>(questions[spec.questions[q]].meta_step_size);
+    msum[q] = 0.0f;
+  }
+  const float* delta = delta_.data();
+  const double* mask = dscratch_.data();
+  if (spec.step_rule == StepRuleKind::kAutostep) {
+    const float inv_tau = 1.0f / kAutostepTau;
+    // Pass 1: adapt alpha_i, accumulate the effective step M per question.
+    for (uint32_t r : rows) {
+      const float er = e.value(r), xr = x_dense_[r], xnr = xn_dense_[r];
+      const size_t base = static_cast<size_t>(r) * nq;
+      float* __restrict alpha = &p.alpha_[base];
+      float* __restrict h = &p.ss_h_[base];
+      float* __restrict v = &p.ss_v_[base];
+      for (uint32_t q = 0; q < nq; ++q) {
+        if (mask[q] == 0.0) continue;
+        const float gh = delta[q] * er * h[q];
+        const float u = std::fabs(gh);
+        v[q] = std::max(u, v[q] + inv_tau * alpha[q] * xr * er * (u - v[q]));
+        if (v[q] > 0.0f) alpha[q] *= std::exp(meta[q] * gh / v[q]);
+        msum[q] += alpha[q] * er * (xr - gamma_next * xnr);
+      }
+    }
+    for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
+    // Pass 2: normalize, update weights and h.
+    for (uint32_t r : rows) {
+      const float er = e.value(r), xr = x_dense_[r];
+      const size_t base = static_cast<size_t>(r) * nq;
+      float* __restrict alpha = &p.alpha_[base];
+      float* __restrict h = &p.ss_h_[base];
+      float* __restrict w = &p.w_[base];
+      for (uint32_t q = 0; q < nq; ++q) {
+        if (mask[q] == 0.0) continue;
+        alpha[q] *= msum[q];
+        const float step_w = alpha[q] * delta[q] * er;
+        w[q] += step_w;
+        h[q] = h[q] * std::max(0.0f, 1.0f - alpha[q] * xr * er) + step_w;
+      }
+    }
+  } else {  // TIDBD
+    for (uint32_t r : rows) {
+      const float er = e.value(r), xr = x_dense_[r];
+      const size_t base = static_cast<size_t>(r) * nq;
+      float* __restrict beta = &p.alpha_[base];
+      float* __restrict h = &p.ss_h_[base];
+      float* __restrict w = &p.w_[base];
+      for (uint32_t q = 0; q < nq; ++q) {
+        if (mask[q] == 0.0) continue;
+        beta[q] = std::clamp(beta[q] + meta[q] * delta[q] * xr * h[q], kMinLogStep, kMaxLogStep);
+        const float alpha = std::exp(beta[q]);
+        const float step_w = alpha * delta[q] * er;
+        w[q] += step_w;
+        h[q] = h[q] * std::max(0.0f, 1.0f - alpha * xr * er) + step_w;
+      }
+    }
+  }
+}
+
+bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
+                         BlockParams& p, BlockTraceState& state, absl::Span<const double> answers) {
+  const uint32_t nq = p.cols();
+  const size_t rows = p.rows();
+  bool reset = false;
+  for (uint32_t q = 0; q < nq; ++q) {
+    QuestionCounters& c = p.counters_[q];
+    const CompiledQuestion& cq = questions[spec.questions[q]];
+    const double horizon = cq.gamma < 1.0 ? std::min(1.0 / (1.0 - cq.gamma), kMaxHorizon)
+                                          : kMaxHorizon;
+    const double bound = kDivergenceFactor * std::max(1.0, c.max_abs_cumulant) * horizon;
+    if (std::isfinite(answers[q]) && std::fabs(answers[q]) <= bound) continue;
+    // Restore the last sound weights of this question and halve its steps.
+    reset = true;
+    ++c.divergence_resets;
+    c.step_scale *= 0.5;
+    for (size_t r = 0; r < rows; ++r) {
+      const size_t i = r * nq + q;
+      p.w_[i] = p.good_w_[i];
+      if (!p.aux_.empty()) p.aux_[i] = 0.0f;
+      if (!p.ss_h_.empty()) p.ss_h_[i] = 0.0f;
+      if (!p.ss_v_.empty()) p.ss_v_[i] = 0.0f;
+      if (!p.alpha_.empty()) {
+        const float a = static_cast<float>(static_cast<double>(p.initial_alpha_[q]) * c.step_scale);
+        p.alpha_[i] = spec.step_rule == StepRuleKind::kTidbd ? std::log(a) : a;
+      }
+    }
+  }
+  if (reset) {
+    state.Reset();
+    p.updates_since_snapshot_ = 0;
+    return true;
+  }
+  if (++p.updates_since_snapshot_ >= kSnapshotEvery) {
+    p.updates_since_snapshot_ = 0;
+    bool finite = true;
+    for (float w : p.w_) finite &= std::isfinite(w);
+    if (finite) p.good_w_ = p.w_;
+  }
+  return false;
+}
+
+}  // namespace bellwether
