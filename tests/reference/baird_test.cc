@@ -1,0 +1,1 @@
+// Filled in by the issue-3 reference checks.
