@@ -276,14 +276,15 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     // Continuation into the new frame.
     double gamma_next = block.gamma;
     bool continuation_known = true;
-    if (block.terminate_when.has_value()) {
-      const double v = frame.values[block.terminate_when->signal];
+    for (const CompiledCondition& c : block.terminate_when) {
+      const double v = frame.values[c.signal];
       if (std::isnan(v)) {
         continuation_known = false;
-      } else if (block.terminate_when->Holds(v)) {
+      } else if (c.Holds(v)) {
         gamma_next = 0.0;
       }
     }
+    if (gamma_next == 0.0) continuation_known = true;  // an event seen ends the return
     // Importance ratio (state values) or target distributions (action values).
     BlockStep step;
     step.x = &s.prev_x;
@@ -402,6 +403,10 @@ const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const 
   if (spec_.pooled) return &pooled_params_[b];
   auto it = streams_.find(stream);
   return it == streams_.end() ? nullptr : &it->second->own_params[b];
+}
+
+BlockParams* Pool::mutable_block_params(absl::string_view stream, size_t b) {
+  return const_cast<BlockParams*>(block_params(stream, b));
 }
 
 absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const {

@@ -64,6 +64,9 @@ class Pool {
   // Learned parameters of block `b` for `stream` (the pool's own when pooled); nullptr
   // if unknown. For tests and diagnostics.
   const BlockParams* block_params(absl::string_view stream, size_t b) const;
+  // Mutable access, to set weights from outside (a test's initial weights; restoring a
+  // checkpoint). Call BlockParams::MarkSound() after changing them. The stream must exist.
+  BlockParams* mutable_block_params(absl::string_view stream, size_t b);
 
  private:
   struct StreamState {

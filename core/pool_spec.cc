@@ -415,13 +415,18 @@ class Compiler {
     }
     cq.gamma = q.gamma();
     cq.lambda = q.lambda();
-    if (q.has_terminate_when()) {
-      auto c = CompileCondition(q.terminate_when(), field + ".terminate_when");
+    for (int t = 0; t < q.terminate_when_size(); ++t) {
+      auto c = CompileCondition(q.terminate_when(t), absl::StrCat(field, ".terminate_when[", t, "]"));
       if (!c.ok()) return c.status();
-      cq.terminate_when = *c;
+      cq.terminate_when.push_back(*c);
     }
     // Target policy.
     const v1::TargetPolicy& p = q.policy();
+    const bool names_actions = p.kind_case() == v1::TargetPolicy::kAction ||
+                               p.kind_case() == v1::TargetPolicy::kDistribution;
+    if (names_actions && out_.actions.empty()) {
+      return Error(field + ".policy", "needs actions: declare the pool's actions");
+    }
     switch (p.kind_case()) {
       case v1::TargetPolicy::KIND_NOT_SET:
         cq.policy.kind = PolicyKind::kBehavior;
@@ -515,14 +520,18 @@ class Compiler {
     if (fixed_only && cq.step_rule != StepRuleKind::kFixed) {
       return Error(field + ".step_rule", "this learner supports only FIXED step sizes");
     }
-    auto check_step = [&](double v, const char* name, double* out) -> absl::Status {
-      if (v != 0.0 && !(v > 0.0 && v <= 1.0)) {
-        return Error(field + "." + name, absl::StrCat(v, " is outside (0, 1]"));
+    auto check_step = [&](double v, const char* name, double* out, double max = 1.0) -> absl::Status {
+      if (v != 0.0 && !(v > 0.0 && v <= max)) {
+        return Error(field + "." + name, absl::StrCat(v, " is outside (0, ", max, "]"));
       }
       *out = v == 0.0 ? kDefaultStepSize : v;
       return absl::OkStatus();
     };
-    if (auto s = check_step(q.step_size(), "step_size", &cq.step_size); !s.ok()) return s;
+    // Autostep's normalization keeps any initial step safe, so it may start large.
+    const double max_step = cq.step_rule == StepRuleKind::kAutostep ? 100.0 : 1.0;
+    if (auto s = check_step(q.step_size(), "step_size", &cq.step_size, max_step); !s.ok()) {
+      return s;
+    }
     if (auto s = check_step(q.secondary_step_size(), "secondary_step_size", &cq.secondary_step_size);
         !s.ok()) {
       return s;

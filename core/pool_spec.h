@@ -59,7 +59,7 @@ struct CompiledQuestion {
   std::string unit;
   CompiledCumulant cumulant;
   double gamma = 0;
-  std::optional<CompiledCondition> terminate_when;
+  std::vector<CompiledCondition> terminate_when;  // any holds: continuation 0
   CompiledPolicy policy;
   double lambda = 0;
   LearnerKind learner = LearnerKind::kTd;
@@ -81,7 +81,7 @@ struct CompiledQuestion {
 struct BlockSpec {
   CompiledPolicy policy;
   double gamma = 0;
-  std::optional<CompiledCondition> terminate_when;
+  std::vector<CompiledCondition> terminate_when;
   double lambda = 0;
   LearnerKind learner = LearnerKind::kTd;
   StepRuleKind step_rule = StepRuleKind::kAutostep;

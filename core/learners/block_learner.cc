@@ -92,6 +92,12 @@ void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, ui
   counters_[to_col] = other.counters_[from_col];
 }
 
+float BlockParams::step_size(uint32_t r, uint32_t q) const {
+  if (alpha_.empty()) return static_cast<float>(static_cast<double>(initial_alpha_[q]) * counters_[q].step_scale);
+  const float a = alpha_[static_cast<size_t>(r) * cols_ + q];
+  return ss_v_.empty() ? std::exp(a) : a;  // TIDBD stores log steps
+}
+
 void BlockParams::StepSizeSummary(uint32_t q, absl::Span<const uint32_t> rows, double norm_sq,
                                   double* mean, double* min, double* max) const {
   const double scale = counters_[q].step_scale;
@@ -103,8 +109,7 @@ void BlockParams::StepSizeSummary(uint32_t q, absl::Span<const uint32_t> rows, d
   // alpha_ holds log steps for TIDBD (negative), steps for Autostep (positive).
   double sum = 0, lo = std::numeric_limits<double>::infinity(), hi = 0;
   for (uint32_t r : rows) {
-    float a = alpha_[static_cast<size_t>(r) * cols_ + q];
-    if (a <= 0.0f) a = std::exp(a);
+    const float a = step_size(r, q);
     sum += static_cast<double>(a);
     lo = std::min(lo, static_cast<double>(a));
     hi = std::max(hi, static_cast<double>(a));

@@ -80,6 +80,14 @@ class BlockParams {
   void StepSizeSummary(uint32_t q, absl::Span<const uint32_t> rows, double norm_sq,
                        double* mean, double* min, double* max) const;
 
+  // The step size of weight (r, q): the per-weight alpha under AUTOSTEP / TIDBD, else
+  // the fixed step for a unit-norm feature vector.
+  float step_size(uint32_t r, uint32_t q) const;
+
+  // Declares the current weights sound: the divergence guard's restore point. Call after
+  // setting weights from outside (a restored checkpoint, a test's initial weights).
+  void MarkSound() { good_w_ = w_; }
+
   std::vector<QuestionCounters>& counters() { return counters_; }
   const std::vector<QuestionCounters>& counters() const { return counters_; }
 

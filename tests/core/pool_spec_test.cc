@@ -106,9 +106,107 @@ INSTANTIATE_TEST_SUITE_P(
         BadSpecCase{"LambdaAboveOne",
                     [](v1::PoolSpec* s) { s->mutable_questions(0)->set_lambda(1.5); },
                     ".lambda: 1.5 is outside [0, 1]"},
-        BadSpecCase{"StepSizeTooLarge",
-                    [](v1::PoolSpec* s) { s->mutable_questions(0)->set_step_size(2); },
+        BadSpecCase{"FixedStepSizeTooLarge",
+                    [](v1::PoolSpec* s) {
+                      s->mutable_questions(0)->set_step_size(2);
+                      s->mutable_questions(0)->set_step_rule(v1::FIXED);
+                    },
                     ".step_size: 2 is outside (0, 1]"},
+        BadSpecCase{"AutostepStepSizeTooLarge",
+                    [](v1::PoolSpec* s) { s->mutable_questions(0)->set_step_size(200); },
+                    ".step_size: 200 is outside (0, 100]"},
+        BadSpecCase{"CompositionalCycle",
+                    [](v1::PoolSpec* s) {
+                      v1::QuestionSpec* a = s->add_questions();
+                      a->set_name("a");
+                      a->mutable_cumulant()->set_question("b");
+                      v1::QuestionSpec* b = s->add_questions();
+                      b->set_name("b");
+                      b->mutable_cumulant()->set_question("a");
+                    },
+                    "questions: cycle a -> b -> a"},
+        BadSpecCase{"SelfCycle",
+                    [](v1::PoolSpec* s) {
+                      s->mutable_questions(0)->mutable_cumulant()->set_question("demand_next_12h");
+                    },
+                    "cycle demand_next_12h -> demand_next_12h"},
+        BadSpecCase{"UnknownQuestionCumulant",
+                    [](v1::PoolSpec* s) {
+                      s->mutable_questions(0)->mutable_cumulant()->set_question("nope");
+                    },
+                    ".cumulant.question: unknown question 'nope'"},
+        BadSpecCase{"OffPolicyWithoutActions",
+                    [](v1::PoolSpec* s) {
+                      s->mutable_questions(0)->mutable_policy()->set_action("charge");
+                    },
+                    "needs actions: declare the pool's actions"},
+        BadSpecCase{"UnknownAction",
+                    [](v1::PoolSpec* s) {
+                      s->add_actions("drive");
+                      s->add_actions("charge");
+                      s->mutable_questions(0)->mutable_policy()->set_action("fly");
+                    },
+                    ".policy.action: unknown action 'fly'"},
+        BadSpecCase{"ProbabilitiesDoNotSumToOne",
+                    [](v1::PoolSpec* s) {
+                      s->add_actions("drive");
+                      s->add_actions("charge");
+                      auto* p = s->mutable_questions(0)->mutable_policy()->mutable_distribution()
+                                    ->mutable_probabilities();
+                      (*p)["drive"] = 0.5;
+                      (*p)["charge"] = 0.6;
+                    },
+                    ".policy.distribution: probabilities sum to 1.1, not 1"},
+        BadSpecCase{"GreedyOnNonControl",
+                    [](v1::PoolSpec* s) {
+                      s->add_actions("drive");
+                      v1::QuestionSpec* q = s->add_questions();
+                      *q = s->questions(0);
+                      q->set_name("follower");
+                      q->mutable_policy()->set_greedy("demand_next_12h");
+                    },
+                    ".policy.greedy: 'demand_next_12h' is not a control question"},
+        BadSpecCase{"TrueOnlineOffPolicy",
+                    [](v1::PoolSpec* s) {
+                      s->add_actions("drive");
+                      s->mutable_questions(0)->mutable_policy()->set_action("drive");
+                      s->mutable_questions(0)->set_learner(v1::TRUE_ONLINE_TD);
+                    },
+                    "TRUE_ONLINE_TD is on-policy only"},
+        BadSpecCase{"TdcWithAutostep",
+                    [](v1::PoolSpec* s) {
+                      s->mutable_questions(0)->set_learner(v1::TDC);
+                      s->mutable_questions(0)->set_step_rule(v1::AUTOSTEP);
+                    },
+                    ".step_rule: this learner supports only FIXED step sizes"},
+        BadSpecCase{"BadIndicatorOp",
+                    [](v1::PoolSpec* s) {
+                      auto* c = s->mutable_questions(0)->mutable_cumulant()->mutable_indicator();
+                      c->set_signal("demand_mw");
+                      c->set_op("==");
+                    },
+                    ".cumulant.indicator.op: '==' is not one of <, <=, >, >="},
+        BadSpecCase{"UnknownTerminationSignal",
+                    [](v1::PoolSpec* s) {
+                      v1::Condition* c = s->mutable_questions(0)->add_terminate_when();
+                      c->set_signal("soc");
+                      c->set_op("<");
+                    },
+                    ".terminate_when[0].signal: unknown signal 'soc'"},
+        BadSpecCase{"RbfTooManyCenters",
+                    [](v1::PoolSpec* s) {
+                      auto* r = s->add_features()->mutable_rbf();
+                      r->add_signals("demand_mw");
+                      r->add_signals("clock.hour_of_day");
+                      r->add_signals("clock.day_of_week");
+                      r->set_centers_per_dim(64);
+                    },
+                    "features[3].rbf: 262144 centers; at most 4096 are allowed"},
+        BadSpecCase{"RawClockSignal",
+                    [](v1::PoolSpec* s) {
+                      s->add_features()->mutable_raw()->add_signals("clock.hour_of_day");
+                    },
+                    "features[3].raw.signals[0]: unknown signal 'clock.hour_of_day'"},
         BadSpecCase{"EmptyRange",
                     [](v1::PoolSpec* s) { s->mutable_signals(0)->set_max(15000); },
                     "signals[0] (demand_mw): range [15000, 15000] is invalid"},
@@ -129,6 +227,45 @@ INSTANTIATE_TEST_SUITE_P(
         BadSpecCase{"BadPoolName", [](v1::PoolSpec* s) { s->set_name("grid one"); },
                     "pool: name 'grid one'"}),
     [](const ::testing::TestParamInfo<BadSpecCase>& p) { return std::string(p.param.name); });
+
+TEST(PoolSpec, OrdersBlocksSoAQuestionComesAfterWhatItReads) {
+  v1::PoolSpec spec = Grid();
+  spec.add_actions("hold");
+  spec.add_actions("shed");
+  // Declared in reverse dependency order: reader, then control, then the base.
+  v1::QuestionSpec* reader = spec.add_questions();
+  reader->set_name("reader");
+  reader->mutable_cumulant()->set_question("demand_next_12h");
+  reader->set_gamma(0.5);
+  reader->mutable_policy()->set_greedy("ctl");
+  v1::QuestionSpec* ctl = spec.add_questions();
+  ctl->set_name("ctl");
+  ctl->mutable_cumulant()->set_signal("demand_mw");
+  ctl->set_gamma(0.5);
+  ctl->set_control(true);
+  auto c = CompilePoolSpec(spec);
+  ASSERT_TRUE(c.ok()) << c.status();
+  EXPECT_EQ(c->questions[1].level, 1);
+  EXPECT_EQ(c->questions[2].level, 0);
+  EXPECT_LT(c->questions[0].block, c->questions[1].block);
+  EXPECT_LT(c->questions[2].block, c->questions[1].block);
+  EXPECT_EQ(c->questions[2].learner, LearnerKind::kQLambda);
+  EXPECT_TRUE(c->blocks[c->questions[2].block].action_valued);
+  EXPECT_EQ(c->blocks[c->questions[2].block].questions.size(), 1u);
+}
+
+TEST(PoolSpec, DefaultsToAutostepAndTdWhereAllowed) {
+  v1::PoolSpec spec = Grid();
+  spec.mutable_questions(0)->set_learner(v1::TDC);
+  *spec.add_questions() = Grid().questions(0);
+  spec.mutable_questions(1)->set_name("plain");
+  auto c = CompilePoolSpec(spec);
+  ASSERT_TRUE(c.ok()) << c.status();
+  EXPECT_EQ(c->questions[0].step_rule, StepRuleKind::kFixed);
+  EXPECT_EQ(c->questions[1].step_rule, StepRuleKind::kAutostep);
+  EXPECT_EQ(c->questions[1].learner, LearnerKind::kTd);
+  EXPECT_EQ(c->blocks.size(), 2u) << "different learners never share a block";
+}
 
 TEST(PoolSpecJson, UnknownFieldsAndSyntaxErrorsAreRejected) {
   EXPECT_FALSE(PoolSpecFromJson(R"({"name": "x", "signalz": []})").ok());
