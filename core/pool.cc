@@ -106,6 +106,7 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
     s.prev_behavior_prob = old_state->prev_behavior_prob;
     s.prev_time_micros = old_state->prev_time_micros;
     s.behavior_counts = old_state->behavior_counts;
+    s.feature_gap_frames = old_state->feature_gap_frames;
     if (!pool->spec_.pooled) copy_params(old_state->own_params, s.own_params);
     for (size_t n = 0; n < from.size(); ++n) {
       if (from[n] < 0) continue;
@@ -246,7 +247,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
   std::copy(frame.values.begin(), frame.values.end(), extended_.begin());
   ComputeClockSignals(frame.time_kind, frame.time_micros, spec_.time_zone,
                       absl::MakeSpan(extended_).subspan(spec_.signal_names.size()));
-  spec_.recipe->Encode(extended_, &normalizer_, &next_x_);
+  if (spec_.recipe->Encode(extended_, &normalizer_, &next_x_) > 0) ++s.feature_gap_frames;
   const std::optional<int64_t> now = AbsoluteTime(frame);
 
   if (frame.restart) {
@@ -446,6 +447,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     pr->set_skipped_missing(c.skipped_missing);
     pr->set_divergence_resets(c.divergence_resets);
     pr->set_step_scale(c.step_scale);
+    pr->set_feature_gap_frames(s.feature_gap_frames);
     pr->set_behavior_estimated(spec_.estimate_behavior &&
                                (q.policy.kind != PolicyKind::kBehavior) && !block.action_valued);
     rows.clear();

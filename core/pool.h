@@ -82,6 +82,7 @@ class Pool {
     std::vector<BlockParams> own_params;        // per block, per-stream learning only
     std::vector<ReturnVerifier> verifiers;      // per question
     std::vector<uint32_t> behavior_counts;      // (cells + 1) x actions, when estimating
+    uint64_t feature_gap_frames = 0;  // frames with a missing feature input
   };
 
   explicit Pool(CompiledPoolSpec spec);

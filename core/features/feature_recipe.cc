@@ -84,9 +84,10 @@ FeatureRecipe::NormalizerState FeatureRecipe::NewNormalizerState() const {
   return s;
 }
 
-void FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerState* state,
-                           SparseFeatures* out) const {
+int FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerState* state,
+                          SparseFeatures* out) const {
   out->Clear();
+  int gaps = 0;
   double inputs[8];
   for (size_t gi = 0; gi < tiles_.size(); ++gi) {
     const TileGroup& g = tiles_[gi];
@@ -95,7 +96,10 @@ void FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerS
       inputs[d] = extended_values[g.inputs[d]];
       complete &= !std::isnan(inputs[d]);
     }
-    if (!complete) continue;
+    if (!complete) {
+      ++gaps;
+      continue;
+    }
     g.coder.Encode(absl::MakeConstSpan(inputs, g.inputs.size()), tile_bases_[gi], hash_size_,
                    out);
   }
@@ -107,7 +111,10 @@ void FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerS
       complete &= !std::isnan(v);
       inputs[d] = std::clamp((v - g.lo[d]) / (g.hi[d] - g.lo[d]), 0.0, 1.0);
     }
-    if (!complete) continue;
+    if (!complete) {
+      ++gaps;
+      continue;
+    }
     // phi_c = exp(-|u - c|^2 / (2 width^2)), centers evenly spaced on [0, 1].
     const uint32_t n = g.num_centers();
     const double inv = 1.0 / (2.0 * g.width * g.width);
@@ -127,7 +134,10 @@ void FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerS
     const RawGroup& g = raws_[gi];
     for (size_t d = 0; d < g.inputs.size(); ++d) {
       const double v = extended_values[g.inputs[d]];
-      if (std::isnan(v)) continue;
+      if (std::isnan(v)) {
+        ++gaps;
+        continue;
+      }
       double value = v;
       if (g.normalize) {
         const size_t s = raw_state_index_[gi] + d;
@@ -143,6 +153,7 @@ void FeatureRecipe::Encode(absl::Span<const double> extended_values, NormalizerS
     }
   }
   if (bias_) out->Add(bias_index_, 1.0f);
+  return gaps;
 }
 
 }  // namespace bellwether

@@ -65,7 +65,9 @@ class FeatureRecipe {
   // value. A tile or RBF group with any missing input contributes no features for this
   // frame; a missing raw signal's feature is inactive. Normalized raw inputs first update
   // `state` with the frame's value. Does not allocate once `out` has max_active() capacity.
-  void Encode(absl::Span<const double> extended_values, NormalizerState* state,
+  // Returns the number of groups (tile, RBF) and raw inputs left inactive because a value
+  // was missing: 0 for a complete frame.
+  int Encode(absl::Span<const double> extended_values, NormalizerState* state,
               SparseFeatures* out) const;
 
  private:

@@ -104,6 +104,14 @@ TEST(Pool, MissingCumulantSkipsTheUpdate) {
   ASSERT_TRUE(ApplyValues(**a, "s", 3, {0, 0}).ok());
   // Only the third frame's transition (state 1 -> 0, reward 0, all weights 0) learned.
   EXPECT_EQ((*a)->predictions("s")[0], 0.0);
+  v1::StreamPredictions p;
+  ASSERT_TRUE((*a)->GetPredictions("s", &p).ok());
+  EXPECT_EQ(p.predictions(0).progress().skipped_missing(), 1u);
+  EXPECT_EQ(p.predictions(0).progress().updates(), 1u);
+  // A missing state signal leaves its features inactive and is noted.
+  ASSERT_TRUE(ApplyValues(**a, "s", 4, {nan, 0}).ok());
+  ASSERT_TRUE((*a)->GetPredictions("s", &p).ok());
+  EXPECT_EQ(p.predictions(0).progress().feature_gap_frames(), 1u);
 }
 
 TEST(Pool, PerStreamLearningKeepsStreamsApartAndPooledSharesWeights) {
