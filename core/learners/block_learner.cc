@@ -477,13 +477,19 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
   const uint32_t nq = p.cols();
   const size_t rows = p.rows();
   bool reset = false;
+  bool plausible = true;
   for (uint32_t q = 0; q < nq; ++q) {
     QuestionCounters& c = p.counters_[q];
     const CompiledQuestion& cq = questions[spec.questions[q]];
     const double horizon = cq.gamma < 1.0 ? std::min(1.0 / (1.0 - cq.gamma), kMaxHorizon)
                                           : kMaxHorizon;
-    const double bound = kDivergenceFactor * std::max(1.0, c.max_abs_cumulant) * horizon;
-    if (std::isfinite(answers[q]) && std::fabs(answers[q]) <= bound) continue;
+    // The largest return the cumulants seen so far could add up to.
+    const double range = std::max(1.0, c.max_abs_cumulant) * horizon;
+    if (std::isfinite(answers[q]) && std::fabs(answers[q]) <= kDivergenceFactor * range) {
+      // Weights whose answers left the plausible range are not a restore point.
+      plausible &= std::fabs(answers[q]) <= range;
+      continue;
+    }
     // Restore the last sound weights of this question and halve its steps.
     reset = true;
     ++c.divergence_resets;
@@ -503,13 +509,17 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
   if (reset) {
     state.Reset();
     p.updates_since_snapshot_ = 0;
+    p.implausible_since_snapshot_ = false;
     return true;
   }
+  // A snapshot needs every answer since the last one inside the plausible range.
+  p.implausible_since_snapshot_ |= !plausible;
   if (++p.updates_since_snapshot_ >= kSnapshotEvery) {
     p.updates_since_snapshot_ = 0;
     bool finite = true;
     for (float w : p.w_) finite &= std::isfinite(w);
-    if (finite) p.good_w_ = p.w_;
+    if (finite && !p.implausible_since_snapshot_) p.good_w_ = p.w_;
+    p.implausible_since_snapshot_ = false;
   }
   return false;
 }

@@ -8,7 +8,8 @@
 // mu(A_t|S_t), gamma_t the continuation into S_t, gamma' into S_{t+1}):
 //   TD(lambda), per-decision importance sampling (Sutton & Barto 2nd ed., eq. 12.25):
 //       e = rho (gamma_t lambda e + x);  w += alpha delta e
-//   True online TD(lambda) (van Seijen & Sutton 2014; van Seijen et al. 2016, JMLR):
+//   True online TD(lambda) (van Seijen & Sutton 2014; van Seijen et al. 2016, JMLR),
+//   exact up to the trace pruning below (entries under 1e-4 are dropped):
 //       e = gamma_t lambda e + (1 - alpha gamma_t lambda e.x) x
 //       w += alpha (delta + v - v_old) e - alpha (v - v_old) x;  v_old = v'
 //   GTD(lambda) in TDC form (Maei 2011; Sutton & Barto 2nd ed., Section 12.11):
@@ -101,6 +102,7 @@ class BlockParams {
   std::vector<float> ss_v_;   // AUTOSTEP: v_i
   std::vector<float> good_w_;  // divergence guard: the last weights known to be sound
   uint64_t updates_since_snapshot_ = 0;
+  bool implausible_since_snapshot_ = false;
   std::vector<QuestionCounters> counters_;
   std::vector<float> initial_alpha_;  // per column
 };
@@ -161,10 +163,11 @@ class BlockLearner {
   void ApplyStepRule(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
                      const BlockStep& step, double norm_sq, const SparseTrace& trace,
                      BlockParams& p);
-  // Divergence guard: a question whose answer is non-finite or beyond
-  // 10 x max(1, max |c|) x min(1 / (1 - gamma), 10^4) gets its last sound weights back
-  // (snapshotted every 1,000 sound updates) and half its step size; the stream's trace
-  // state restarts. Returns whether any question was reset.
+  // Divergence guard: a question whose answer is non-finite or beyond 10 x its plausible
+  // range max(1, max |c|) x min(1 / (1 - gamma), 10^4) gets its last sound weights back
+  // and half its step size; the stream's trace state restarts. Weights are snapshotted
+  // as sound every 1,000 updates, only if every answer since the last snapshot stayed
+  // within the plausible range. Returns whether any question was reset.
   bool Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
              BlockParams& p, BlockTraceState& state, absl::Span<const double> answers);
 
