@@ -64,6 +64,7 @@ Pool::Pool(CompiledPoolSpec spec)
   trans_cumulant_.resize(nq);
   trans_continuation_.resize(nq);
   trans_pi_.resize(nq);
+  trans_rho_.resize(nq);
   pi_now_.resize(num_actions_);
   pi_next_.resize(num_actions_);
   q_values_.resize(num_actions_);
@@ -133,7 +134,26 @@ Pool::StreamState& Pool::GetOrCreateStream(absl::string_view stream) {
     state->block_states.back().v_old.assign(b.questions.size(), 0.0);
     if (!spec_.pooled) state->own_params.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
   }
-  for (const CompiledQuestion& q : spec_.questions) state->verifiers.emplace_back(q.gamma);
+  for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+    const CompiledQuestion& q = spec_.questions[qi];
+    VerificationMode mode = VerificationMode::kOnPolicy;
+    if (q.control || q.policy.kind == PolicyKind::kAction || q.policy.kind == PolicyKind::kGreedy) {
+      mode = VerificationMode::kOnTargetStretches;
+    } else if (q.policy.kind == PolicyKind::kDistribution) {
+      mode = VerificationMode::kImportanceWeighted;
+    }
+    const bool probability = q.cumulant.kind == CumulantKind::kIndicator && q.gamma == 1.0 &&
+                             !q.terminate_when.empty();
+    state->verifiers.emplace_back(q.gamma, spec_.verify_max_held, spec_.verify_window, mode,
+                                  probability);
+    if (sink_) {
+      std::string name(stream);
+      state->verifiers.back().set_sink(
+          [this, name, qi](uint64_t seq, double prediction, double realized, bool truncated) {
+            sink_(name, qi, seq, prediction, realized, truncated);
+          });
+    }
+  }
   if (spec_.estimate_behavior) {
     state->behavior_counts.assign((spec_.behavior_cells->num_tiles() + 1) * num_actions_, 0);
   }
@@ -296,6 +316,17 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     if (block.action_valued) {
       usable &= s.prev_action >= 0;
       step.action = s.prev_action;
+      if (block.learner == LearnerKind::kQLambda && usable) {
+        // The control question's own greedy policy at S_t, before this update.
+        learner_.ActionValues(s.prev_x, params, 0, absl::MakeSpan(q_values_));
+        double best = -std::numeric_limits<double>::infinity();
+        for (double v : q_values_) best = std::max(best, v);
+        int count = 0;
+        for (double v : q_values_) count += (v == best);
+        pi_taken = q_values_[static_cast<size_t>(s.prev_action)] == best && count > 0
+                       ? 1.0 / count
+                       : 0.0;
+      }
       if (block.learner == LearnerKind::kTreeBackup && usable) {
         PolicyDistribution(block.policy, s, s.prev_x, absl::MakeSpan(pi_now_));
         pi_taken = pi_now_[static_cast<size_t>(s.prev_action)];
@@ -341,6 +372,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
       trans_cumulant_[qi] = continuation_known ? value : kNaN;
       trans_continuation_[qi] = gamma_next;
       trans_pi_[qi] = usable ? pi_taken : 0.0;
+      trans_rho_[qi] = step.rho;
       cumulants_[i] = usable ? trans_cumulant_[qi] : kNaN;
     }
     step.cumulants = absl::MakeConstSpan(cumulants_.data(), nq);
@@ -352,22 +384,18 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     }
   }
 
-  // Verified error: held predictions accumulate the transition's cumulant. For an
-  // off-policy question, a step the target policy would never take ends what it held.
+  // Verified error: held predictions accumulate the transition's cumulant; off-policy
+  // questions verify on the target's stretches or with importance weights (see
+  // ReturnVerifier).
   for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
     ReturnVerifier& verifier = s.verifiers[qi];
-    const CompiledQuestion& q = spec_.questions[qi];
     if (frame.restart) {
       verifier.Interrupt();
     } else if (learn) {
-      const bool on_policy = q.policy.kind == PolicyKind::kBehavior && !q.control;
-      if (!on_policy && trans_pi_[qi] == 0.0) {
-        verifier.Interrupt();
-      } else {
-        verifier.Observe(trans_cumulant_[qi], trans_continuation_[qi]);
-      }
+      verifier.Observe(trans_cumulant_[qi], trans_continuation_[qi], trans_pi_[qi],
+                       trans_rho_[qi]);
     }
-    verifier.Hold(next_answers_[qi]);
+    verifier.Hold(next_answers_[qi], frame.seq);
   }
 
   std::swap(s.prev_x, next_x_);
@@ -406,6 +434,27 @@ const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const 
   return it == streams_.end() ? nullptr : &it->second->own_params[b];
 }
 
+void Pool::SetVerificationSink(VerificationSink sink) {
+  sink_ = std::move(sink);
+  for (auto& [name, state] : streams_) {
+    for (size_t qi = 0; qi < state->verifiers.size(); ++qi) {
+      std::string stream_name = name;
+      state->verifiers[qi].set_sink(
+          [this, stream_name, qi](uint64_t seq, double p, double r, bool truncated) {
+            sink_(stream_name, qi, seq, p, r, truncated);
+          });
+    }
+  }
+}
+
+size_t Pool::verification_memory_bytes(absl::string_view stream) const {
+  auto it = streams_.find(stream);
+  if (it == streams_.end()) return 0;
+  size_t bytes = 0;
+  for (const ReturnVerifier& v : it->second->verifiers) bytes += v.memory_bytes();
+  return bytes;
+}
+
 BlockParams* Pool::mutable_block_params(absl::string_view stream, size_t b) {
   return const_cast<BlockParams*>(block_params(stream, b));
 }
@@ -441,6 +490,28 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     ve->set_rmse(st.rmse);
     ve->set_bias(st.bias);
     ve->set_window(st.window);
+    ve->set_nrmse(st.nrmse);
+    ve->set_truncated(st.truncated);
+    ve->set_unverifiable(st.unverifiable);
+    ve->set_effective_sample_size(st.effective_sample_size);
+    ve->set_memory_bytes(s.verifiers[qi].memory_bytes());
+    switch (s.verifiers[qi].mode()) {
+      case VerificationMode::kOnPolicy: ve->set_mode("on-policy"); break;
+      case VerificationMode::kOnTargetStretches: ve->set_mode("on-target stretches"); break;
+      case VerificationMode::kImportanceWeighted: ve->set_mode("importance-weighted"); break;
+    }
+    const bool probability = q.cumulant.kind == CumulantKind::kIndicator && q.gamma == 1.0 &&
+                             !q.terminate_when.empty();
+    for (size_t b = 0; probability && b < st.calibration.size(); ++b) {
+      const CalibrationBin& bin = st.calibration[b];
+      v1::CalibrationBin* out_bin = ve->add_calibration();
+      out_bin->set_lower(0.1 * static_cast<double>(b));
+      out_bin->set_count(bin.count);
+      if (bin.count > 0) {
+        out_bin->set_mean_predicted(bin.sum_predicted / static_cast<double>(bin.count));
+        out_bin->set_observed_frequency(bin.sum_observed / static_cast<double>(bin.count));
+      }
+    }
     const QuestionCounters& c = params.counters()[q.index_in_block];
     v1::QuestionProgress* pr = p->mutable_progress();
     pr->set_updates(c.updates);
@@ -448,6 +519,13 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     pr->set_divergence_resets(c.divergence_resets);
     pr->set_step_scale(c.step_scale);
     pr->set_feature_gap_frames(s.feature_gap_frames);
+    pr->set_td_error_mean(c.progress.td_mean);
+    pr->set_td_error_rms(c.progress.td_rms());
+    pr->set_rupee(c.progress.rupee);
+    pr->set_ude(c.progress.ude());
+    pr->set_weight_change(c.progress.weight_change);
+    pr->set_effective_sample_fraction(c.progress.effective_sample_fraction());
+    pr->set_label(ProgressLabelName(c.progress.Label(spec_.progress_decay)));
     pr->set_behavior_estimated(spec_.estimate_behavior &&
                                (q.policy.kind != PolicyKind::kBehavior) && !block.action_valued);
     rows.clear();

@@ -4,6 +4,7 @@
 #ifndef BELLWETHER_CORE_POOL_H_
 #define BELLWETHER_CORE_POOL_H_
 
+#include <functional>
 #include <memory>
 #include <optional>
 #include <string>
@@ -61,6 +62,17 @@ class Pool {
   // Current answers of `stream` in question order (empty span if unknown).
   absl::Span<const double> predictions(absl::string_view stream) const;
 
+  // Receives every verified prediction of every stream (offline summaries, e.g. the
+  // CLI's replay --summary): stream, question index, the seq the prediction was made at,
+  // the prediction, the realized return, and whether the return was cut at the cap.
+  using VerificationSink = std::function<void(const std::string& stream, size_t question,
+                                              uint64_t seq, double prediction, double realized,
+                                              bool truncated)>;
+  void SetVerificationSink(VerificationSink sink);
+
+  // Bytes the verified-error bookkeeping holds for `stream` (fixed per stream).
+  size_t verification_memory_bytes(absl::string_view stream) const;
+
   // Learned parameters of block `b` for `stream` (the pool's own when pooled); nullptr
   // if unknown. For tests and diagnostics.
   const BlockParams* block_params(absl::string_view stream, size_t b) const;
@@ -97,6 +109,7 @@ class Pool {
 
   CompiledPoolSpec spec_;
   uint32_t num_actions_;
+  VerificationSink sink_;
   std::vector<BlockParams> pooled_params_;  // per block, pooled learning only
   FeatureRecipe::NormalizerState normalizer_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamState>> streams_;
@@ -108,7 +121,7 @@ class Pool {
   std::vector<double> next_answers_;   // per question, at the new frame
   std::vector<double> cumulants_;      // per question of the current block
   std::vector<double> block_answers_;  // per question of the current block
-  std::vector<double> trans_cumulant_, trans_continuation_, trans_pi_;  // per question
+  std::vector<double> trans_cumulant_, trans_continuation_, trans_pi_, trans_rho_;
   std::vector<double> pi_now_, pi_next_, q_values_;
 };
 

@@ -42,7 +42,8 @@ class Compiler {
     out_.proto = spec_;
     for (auto step : {&Compiler::CompileTimeZone, &Compiler::CompileSignals,
                       &Compiler::CompileActions, &Compiler::CompileFeatures,
-                      &Compiler::CompileBehavior, &Compiler::CompileQuestions,
+                      &Compiler::CompileBehavior, &Compiler::CompileProgress,
+                      &Compiler::CompileQuestions,
                       &Compiler::OrderQuestions, &Compiler::FormBlocks}) {
       if (absl::Status s = (this->*step)(); !s.ok()) return s;
     }
@@ -282,6 +283,24 @@ class Compiler {
       return s;
     }
     out_.behavior_cells = std::make_shared<TileCoder>(std::move(opt));
+    return absl::OkStatus();
+  }
+
+  absl::Status CompileProgress() {
+    const v1::ProgressSpec& p = spec_.progress();
+    if (p.decay() != 0.0 && !(p.decay() >= 0.5 && p.decay() < 1.0)) {
+      return Error("progress.decay", absl::StrCat(p.decay(), " is outside [0.5, 1)"));
+    }
+    out_.progress_decay = p.decay() == 0.0 ? 0.999 : p.decay();
+    if (p.verify_window() > 100000) {
+      return Error("progress.verify_window", absl::StrCat(p.verify_window(), " exceeds 100000"));
+    }
+    if (p.verify_window() != 0) out_.verify_window = p.verify_window();
+    if (p.verify_max_held() > 1000000) {
+      return Error("progress.verify_max_held",
+                   absl::StrCat(p.verify_max_held(), " exceeds 1000000"));
+    }
+    if (p.verify_max_held() != 0) out_.verify_max_held = p.verify_max_held();
     return absl::OkStatus();
   }
 
@@ -622,6 +641,8 @@ class Compiler {
           k.level = level;
           k.action_valued =
               q.learner == LearnerKind::kTreeBackup || q.learner == LearnerKind::kQLambda;
+          k.progress_decay = out_.progress_decay;
+          k.rupee = !spec_.progress().disable_rupee();
           out_.blocks.push_back(std::move(k));
           if (q.control) out_.blocks.back().questions.reserve(1);
         }

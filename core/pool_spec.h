@@ -88,6 +88,8 @@ struct BlockSpec {
   double shared_step_size = 0;  // TRUE_ONLINE_TD: the block's one step size
   int level = 0;
   bool action_valued = false;   // TREE_BACKUP and control questions learn q(s, a)
+  double progress_decay = 0.999;  // the pool's progress averaging decay
+  bool rupee = true;              // track RUPEE (costs two extra weight-sized arrays)
   std::vector<size_t> questions;  // indices into CompiledPoolSpec::questions
 };
 
@@ -101,6 +103,9 @@ struct CompiledPoolSpec {
   std::vector<CompiledQuestion> questions;
   std::vector<BlockSpec> blocks;  // in evaluation order (by level)
   bool pooled = false;
+  double progress_decay = 0.999;
+  size_t verify_window = 1000;
+  size_t verify_max_held = 10000;
   // Behavior probabilities are estimated (not carried by frames).
   bool estimate_behavior = false;
   std::shared_ptr<const TileCoder> behavior_cells;  // coarse tiling for the estimate

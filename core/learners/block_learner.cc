@@ -56,6 +56,11 @@ BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuesti
   w_.assign(n, 0.0f);
   good_w_.assign(n, 0.0f);
   if (spec.learner == LearnerKind::kTdc) aux_.assign(n, 0.0f);
+  if (spec.rupee) {
+    rupee_h_.assign(n, 0.0f);
+    rupee_u_.assign(n, 0.0f);
+  }
+  rupee_dot_.assign(cols_, 0.0);
   counters_.resize(cols_);
   initial_alpha_.resize(cols_);
   for (uint32_t c = 0; c < cols_; ++c) {
@@ -90,6 +95,17 @@ void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, ui
   copy(other.ss_h_, ss_h_);
   copy(other.ss_v_, ss_v_);
   counters_[to_col] = other.counters_[from_col];
+  if (!rupee_u_.empty() && !other.rupee_u_.empty()) {
+    // Bring the other block's lazily scaled u onto this block's scale.
+    const float ratio = static_cast<float>(other.rupee_scale_ / rupee_scale_);
+    for (uint32_t r = 0; r < rows_; ++r) {
+      const size_t src = static_cast<size_t>(r) * other.cols_ + from_col;
+      const size_t dst = static_cast<size_t>(r) * cols_ + to_col;
+      rupee_h_[dst] = other.rupee_h_[src];
+      rupee_u_[dst] = other.rupee_u_[src] * ratio;
+    }
+    rupee_dot_[to_col] = other.rupee_dot_[from_col] * (other.rupee_scale_ / rupee_scale_);
+  }
 }
 
 float BlockParams::step_size(uint32_t r, uint32_t q) const {
@@ -126,6 +142,7 @@ BlockLearner::BlockLearner(uint32_t max_rows, uint32_t max_cols, uint32_t num_ac
   delta_.resize(max_cols);
   scratch_.resize(max_cols * 4);
   dscratch_.resize(max_cols * 4);
+  wsq_.resize(max_cols);
   pi_buf_.resize(num_actions_ * 2);
   q_buf_.resize(num_actions_ * 2);
   x_dense_.assign(max_rows, 0.0f);
@@ -396,6 +413,33 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
   }
   state.gamma_t = gamma_next;
 
+  // Learning progress: TD error, amount of learning, importance ratio.
+  if (any) {
+    double e_sq = 0;
+    for (uint32_t r : e.active()) {
+      e_sq += static_cast<double>(e.value(r)) * static_cast<double>(e.value(r));
+    }
+    const double e_norm = std::sqrt(e_sq);
+    const bool per_weight = UsesPerWeightSteps(spec.step_rule) &&
+                            spec.learner != LearnerKind::kTdc &&
+                            spec.learner != LearnerKind::kTrueOnlineTd;
+    for (uint32_t q = 0; q < nq; ++q) {
+      if (dscratch_[q] == 0.0) continue;
+      QuestionCounters& c = p.counters_[q];
+      double change;
+      if (per_weight) {
+        change = std::sqrt(wsq_[q]);
+      } else {
+        const double alpha = spec.learner == LearnerKind::kTrueOnlineTd
+                                 ? dutch_alpha
+                                 : questions[spec.questions[q]].step_size * c.step_scale / norm_sq;
+        change = std::fabs(alpha * static_cast<double>(delta_[q])) * e_norm;
+      }
+      c.progress.Update(static_cast<double>(delta_[q]), change, step.rho, spec.progress_decay);
+    }
+    if (spec.rupee) UpdateRupee(spec, step, norm_sq, e, p);
+  }
+
   // Answers at S_{t+1} with the updated weights (restored ones after a guard reset).
   const auto pi_answer = absl::MakeConstSpan(pi_next, spec.action_valued ? A : 0);
   Answer(spec, xn, pi_answer, p, answers, greedy_action);
@@ -416,6 +460,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
   for (uint32_t q = 0; q < nq; ++q) {
     meta[q] = static_cast<float>(questions[spec.questions[q]].meta_step_size);
     msum[q] = 0.0f;
+    wsq_[q] = 0.0;
   }
   const float* delta = delta_.data();
   const double* mask = dscratch_.data();
@@ -450,6 +495,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
         alpha[q] *= msum[q];
         const float step_w = alpha[q] * delta[q] * er;
         w[q] += step_w;
+        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
         h[q] = h[q] * std::max(0.0f, 1.0f - alpha[q] * xr * er) + step_w;
       }
     }
@@ -466,9 +512,70 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
         const float alpha = std::exp(beta[q]);
         const float step_w = alpha * delta[q] * er;
         w[q] += step_w;
+        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
         h[q] = h[q] * std::max(0.0f, 1.0f - alpha * xr * er) + step_w;
       }
     }
+  }
+}
+
+void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, double norm_sq,
+                               const SparseTrace& e, BlockParams& p) {
+  // RUPEE (A. White 2015, thesis; from memory): h += alpha_h (delta e - (h.x) x),
+  // avg(delta e) decays at beta = 1 - decay; RUPEE = sqrt(|h . avg(delta e)|), with
+  // alpha_h = 0.1 / |x|^2.
+  const uint32_t nq = p.cols();
+  const SparseFeatures& x = *step.x;
+  const double beta = 1.0 - spec.progress_decay;
+  const float alpha_h = static_cast<float>(0.1 / norm_sq);
+  p.rupee_scale_ *= 1.0 - beta;
+  const float du_scale = static_cast<float>(beta / p.rupee_scale_);
+  const uint32_t stride = spec.action_valued ? num_actions_ : 1;
+  const uint32_t off = spec.action_valued ? static_cast<uint32_t>(step.action) : 0;
+  double* dot = p.rupee_dot_.data();
+  float* hx = scratch_.data();
+  std::fill(hx, hx + nq, 0.0f);
+  for (size_t k = 0; k < x.size(); ++k) {
+    const float* h = &p.rupee_h_[static_cast<size_t>(x.index[k] * stride + off) * nq];
+    for (uint32_t q = 0; q < nq; ++q) hx[q] += x.value[k] * h[q];
+  }
+  for (uint32_t r : e.active()) {
+    const float er = e.value(r);
+    float* __restrict h = &p.rupee_h_[static_cast<size_t>(r) * nq];
+    float* __restrict u = &p.rupee_u_[static_cast<size_t>(r) * nq];
+    for (uint32_t q = 0; q < nq; ++q) {
+      const float de = delta_[q] * er;
+      const float du = du_scale * de;
+      dot[q] += static_cast<double>(h[q]) * static_cast<double>(du);
+      u[q] += du;
+      const float dh = alpha_h * de;
+      h[q] += dh;
+      dot[q] += static_cast<double>(dh) * static_cast<double>(u[q]);
+    }
+  }
+  for (size_t k = 0; k < x.size(); ++k) {
+    const size_t r = static_cast<size_t>(x.index[k] * stride + off);
+    float* __restrict h = &p.rupee_h_[r * nq];
+    const float* u = &p.rupee_u_[r * nq];
+    for (uint32_t q = 0; q < nq; ++q) {
+      const float dh = -alpha_h * hx[q] * x.value[k];
+      h[q] += dh;
+      dot[q] += static_cast<double>(dh) * static_cast<double>(u[q]);
+    }
+  }
+  if (p.rupee_scale_ < 1e-30) {
+    // Fold the scale into u (rare: every few tens of thousands of updates) and recompute
+    // the dot products exactly.
+    const float s = static_cast<float>(p.rupee_scale_);
+    std::fill(p.rupee_dot_.begin(), p.rupee_dot_.end(), 0.0);
+    for (size_t i = 0; i < p.rupee_u_.size(); ++i) {
+      p.rupee_u_[i] *= s;
+      dot[i % nq] += static_cast<double>(p.rupee_h_[i]) * static_cast<double>(p.rupee_u_[i]);
+    }
+    p.rupee_scale_ = 1.0;
+  }
+  for (uint32_t q = 0; q < nq; ++q) {
+    p.counters_[q].progress.rupee = std::sqrt(std::fabs(p.rupee_scale_ * dot[q]));
   }
 }
 
@@ -494,12 +601,18 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
     reset = true;
     ++c.divergence_resets;
     c.step_scale *= 0.5;
+    c.progress.MarkReset();
+    p.rupee_dot_[q] = 0.0;
     for (size_t r = 0; r < rows; ++r) {
       const size_t i = r * nq + q;
       p.w_[i] = p.good_w_[i];
       if (!p.aux_.empty()) p.aux_[i] = 0.0f;
       if (!p.ss_h_.empty()) p.ss_h_[i] = 0.0f;
       if (!p.ss_v_.empty()) p.ss_v_[i] = 0.0f;
+      if (!p.rupee_h_.empty()) {
+        p.rupee_h_[i] = 0.0f;
+        p.rupee_u_[i] = 0.0f;
+      }
       if (!p.alpha_.empty()) {
         const float a = static_cast<float>(static_cast<double>(p.initial_alpha_[q]) * c.step_scale);
         p.alpha_[i] = spec.step_rule == StepRuleKind::kTidbd ? std::log(a) : a;

@@ -46,6 +46,7 @@
 #include "core/features/sparse_features.h"
 #include "core/learners/sparse_trace.h"
 #include "core/pool_spec.h"
+#include "core/progress/learning_progress.h"
 
 namespace bellwether {
 
@@ -56,6 +57,7 @@ struct QuestionCounters {
   uint64_t divergence_resets = 0;
   double step_scale = 1.0;     // halved at each divergence reset
   double max_abs_cumulant = 0;  // largest |c| seen, for the divergence bound
+  LearningProgress progress;
 };
 
 // The learned parameters of one block: in a pooled pool one per block, otherwise one
@@ -101,6 +103,11 @@ class BlockParams {
   std::vector<float> ss_h_;   // AUTOSTEP/TIDBD: h_i
   std::vector<float> ss_v_;   // AUTOSTEP: v_i
   std::vector<float> good_w_;  // divergence guard: the last weights known to be sound
+  // RUPEE: h (secondary weights) and u, with avg(delta e) = rupee_scale_ * u stored
+  // lazily scaled so its decay costs nothing per step; rupee_dot_[q] = h_q . u_q.
+  std::vector<float> rupee_h_, rupee_u_;
+  double rupee_scale_ = 1.0;
+  std::vector<double> rupee_dot_;
   uint64_t updates_since_snapshot_ = 0;
   bool implausible_since_snapshot_ = false;
   std::vector<QuestionCounters> counters_;
@@ -168,12 +175,14 @@ class BlockLearner {
   // and half its step size; the stream's trace state restarts. Weights are snapshotted
   // as sound every 1,000 updates, only if every answer since the last snapshot stayed
   // within the plausible range. Returns whether any question was reset.
+  void UpdateRupee(const BlockSpec& spec, const BlockStep& step, double norm_sq,
+                   const SparseTrace& trace, BlockParams& p);
   bool Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
              BlockParams& p, BlockTraceState& state, absl::Span<const double> answers);
 
   uint32_t num_actions_;
   std::vector<float> v_, v_next_, delta_, scratch_;
-  std::vector<double> dscratch_, pi_buf_, q_buf_;
+  std::vector<double> dscratch_, pi_buf_, q_buf_, wsq_;
   std::vector<float> x_dense_, xn_dense_;  // feature values by row for the current step
 };
 

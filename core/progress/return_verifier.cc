@@ -5,8 +5,9 @@
 
 namespace bellwether {
 
-ReturnVerifier::ReturnVerifier(double gamma, size_t max_held, size_t window)
-    : errors_(std::max<size_t>(window, 1), 0.0) {
+ReturnVerifier::ReturnVerifier(double gamma, size_t max_held, size_t window,
+                               VerificationMode mode, bool probability)
+    : mode_(mode), probability_(probability), window_(std::max<size_t>(window, 1)) {
   size_t k = 0;
   double d = 1.0;
   while (d >= kDiscountFloor && k < max_held) {
@@ -17,24 +18,24 @@ ReturnVerifier::ReturnVerifier(double gamma, size_t max_held, size_t window)
   held_.resize(horizon_ + 1);
 }
 
-void ReturnVerifier::Observe(double c, double continuation) {
-  if (std::isnan(c)) {
-    totals_.unverifiable += held_count_;
-    held_count_ = 0;
-    held_start_ = 0;
+void ReturnVerifier::Observe(double c, double continuation, double pi, double rho) {
+  if (std::isnan(c) || (mode_ == VerificationMode::kOnTargetStretches && pi == 0.0)) {
+    Interrupt();
     return;
   }
+  const bool weighted = mode_ == VerificationMode::kImportanceWeighted;
   const size_t cap = held_.size();
   for (size_t i = 0; i < held_count_; ++i) {
     Held& h = held_[(held_start_ + i) % cap];
-    h.realized += h.discount * c;
+    if (weighted) h.weight *= rho;
+    h.realized += h.discount * h.weight * c;
     h.discount *= continuation;
     ++h.steps;
   }
   // Oldest first: it has the smallest remaining discount.
   while (held_count_ > 0) {
     const Held& h = held_[held_start_];
-    const bool done = h.discount < kDiscountFloor;
+    const bool done = h.discount < kDiscountFloor || h.weight == 0.0;
     const bool capped = h.steps >= horizon_;
     if (!done && !capped) break;
     Verify(h, !done);
@@ -49,58 +50,59 @@ void ReturnVerifier::Interrupt() {
   held_start_ = 0;
 }
 
-void ReturnVerifier::Hold(double prediction) {
+void ReturnVerifier::Hold(double prediction, uint64_t seq) {
   const size_t cap = held_.size();
   if (held_count_ == cap) {  // cannot happen: Observe releases at the horizon
     Verify(held_[held_start_], true);
     held_start_ = (held_start_ + 1) % cap;
     --held_count_;
   }
-  held_[(held_start_ + held_count_) % cap] = Held{prediction, 0.0, 1.0, 0};
+  held_[(held_start_ + held_count_) % cap] = Held{prediction, 0.0, 1.0, 1.0, seq, 0};
   ++held_count_;
 }
 
 void ReturnVerifier::Verify(const Held& h, bool truncated) {
-  const double err = h.prediction - h.realized;
   ++totals_.count;
   if (truncated) ++totals_.truncated;
-  const size_t w = errors_.size();
-  if (error_count_ == w) {
-    const double old = errors_[error_next_];
-    sum_ -= old;
-    sum_sq_ -= old * old;
-  } else {
-    ++error_count_;
+  window_[window_next_] = Verified{h.prediction - h.realized, h.realized, h.weight};
+  window_next_ = (window_next_ + 1) % window_.size();
+  window_count_ = std::min(window_count_ + 1, window_.size());
+  if (probability_) {
+    const double p = std::clamp(h.prediction, 0.0, 1.0);
+    CalibrationBin& bin = totals_.calibration[std::min<size_t>(static_cast<size_t>(p * 10), 9)];
+    ++bin.count;
+    bin.sum_predicted += h.prediction;
+    bin.sum_observed += h.realized;
   }
-  errors_[error_next_] = err;
-  error_next_ = (error_next_ + 1) % w;
-  sum_ += err;
-  sum_sq_ += err * err;
-  // Recompute the sums now and then so rounding from add/subtract does not drift.
-  if (++since_resum_ >= w) {
-    since_resum_ = 0;
-    sum_ = 0;
-    sum_sq_ = 0;
-    for (size_t i = 0; i < error_count_; ++i) {
-      sum_ += errors_[i];
-      sum_sq_ += errors_[i] * errors_[i];
-    }
-  }
+  if (sink_) sink_(h.seq, h.prediction, h.realized, truncated);
 }
 
 VerifiedErrorStats ReturnVerifier::stats() const {
   VerifiedErrorStats s = totals_;
-  s.window = static_cast<uint32_t>(error_count_);
-  if (error_count_ > 0) {
-    const double n = static_cast<double>(error_count_);
-    s.bias = sum_ / n;
-    s.rmse = std::sqrt(std::max(0.0, sum_sq_ / n));
+  s.window = static_cast<uint32_t>(window_count_);
+  if (window_count_ == 0) return s;
+  // Summed on demand (a read, not the frame path): no running-sum drift.
+  double sum = 0, sum_sq = 0, r_sum = 0, r_sq = 0, w_sum = 0, w_sq = 0;
+  for (size_t i = 0; i < window_count_; ++i) {
+    const Verified& v = window_[i];
+    sum += v.error;
+    sum_sq += v.error * v.error;
+    r_sum += v.realized;
+    r_sq += v.realized * v.realized;
+    w_sum += v.weight;
+    w_sq += v.weight * v.weight;
   }
+  const double n = static_cast<double>(window_count_);
+  s.bias = sum / n;
+  s.rmse = std::sqrt(sum_sq / n);
+  const double var = std::max(0.0, r_sq / n - (r_sum / n) * (r_sum / n));
+  s.nrmse = var > 0 ? s.rmse / std::sqrt(var) : 0.0;
+  s.effective_sample_size = w_sq > 0 ? w_sum * w_sum / w_sq : 0.0;
   return s;
 }
 
 size_t ReturnVerifier::memory_bytes() const {
-  return held_.capacity() * sizeof(Held) + errors_.capacity() * sizeof(double);
+  return sizeof(*this) + held_.capacity() * sizeof(Held) + window_.capacity() * sizeof(Verified);
 }
 
 }  // namespace bellwether

@@ -1,6 +1,7 @@
 // Integration: the real bellwetherd on 127.0.0.1 (port 0), driven over real gRPC.
 #include <fcntl.h>
 #include <signal.h>
+#include <sys/prctl.h>
 #include <sys/wait.h>
 #include <unistd.h>
 
@@ -31,6 +32,8 @@ class Daemon {
     if (pipe(fds) != 0) return;
     pid_ = fork();
     if (pid_ == 0) {
+      // Die with the test process, so a test killed by a timeout leaves no daemon behind.
+      prctl(PR_SET_PDEATHSIG, SIGKILL);
       dup2(fds[1], 1);
       close(fds[0]);
       execl(BW_DAEMON_PATH, BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--state-dir",
