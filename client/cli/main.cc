@@ -194,11 +194,14 @@ int Stream(const Args& args) {
 void PrintPredictions(const v1::StreamPredictions& p) {
   std::cout << absl::StrFormat("pool %s  stream %s  as of seq %d\n", p.pool(), p.stream(),
                                p.as_of_seq());
-  std::cout << absl::StrFormat("%-24s %16s %-8s %14s %10s\n", "question", "answer", "unit",
-                               "verified RMSE", "verified n");
+  std::cout << absl::StrFormat("%-24s %16s %-8s %14s %8s %10s  %s\n", "question", "answer",
+                               "unit", "verified RMSE", "NRMSE", "verified n", "progress");
   for (const v1::Prediction& q : p.predictions()) {
-    std::cout << absl::StrFormat("%-24s %16.4f %-8s %14.4f %10d\n", q.question(), q.value(),
-                                 q.unit(), q.verified().rmse(), q.verified().count());
+    std::string answer = absl::StrFormat("%16.4f", q.value());
+    if (!q.greedy_action().empty()) answer += " (" + q.greedy_action() + ")";
+    std::cout << absl::StrFormat("%-24s %16s %-8s %14.4f %8.3f %10d  %s\n", q.question(), answer,
+                                 q.unit(), q.verified().rmse(), q.verified().nrmse(),
+                                 q.verified().count(), q.progress().label());
   }
 }
 

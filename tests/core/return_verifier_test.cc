@@ -82,3 +82,59 @@ TEST(ReturnVerifier, WindowKeepsOnlyRecentErrors) {
 
 }  // namespace
 }  // namespace bellwether
+
+namespace bellwether {
+namespace {
+
+TEST(ReturnVerifier, NrmseIsRmseOverTheSpreadOfRealizedReturns) {
+  ReturnVerifier v(0.0, 10, 100);  // gamma 0: the return is the next cumulant
+  // Realized returns alternate 0 and 2 (sd 1); predictions always 1: RMSE 1, NRMSE 1.
+  for (int t = 0; t < 50; ++t) {
+    v.Hold(1.0);
+    v.Observe(t % 2 == 0 ? 0.0 : 2.0, 0.0);
+  }
+  const VerifiedErrorStats s = v.stats();
+  EXPECT_DOUBLE_EQ(s.rmse, 1.0);
+  EXPECT_DOUBLE_EQ(s.nrmse, 1.0);
+  EXPECT_DOUBLE_EQ(s.effective_sample_size, 50.0);
+}
+
+TEST(ReturnVerifier, CalibrationBinsCountPredictedAgainstObserved) {
+  ReturnVerifier v(1.0, 100, 100, VerificationMode::kOnPolicy, /*probability=*/true);
+  // Predictions of 0.25 realized as 1 one time in four; 0.85 realized three times in four.
+  for (int t = 0; t < 40; ++t) {
+    v.Hold(0.25);
+    v.Observe(t % 4 == 0 ? 1.0 : 0.0, 0.0);  // the event ends each return at once
+    v.Hold(0.85);
+    v.Observe(t % 4 == 0 ? 0.0 : 1.0, 0.0);
+  }
+  const VerifiedErrorStats s = v.stats();
+  EXPECT_EQ(s.calibration[2].count, 40u);
+  EXPECT_DOUBLE_EQ(s.calibration[2].sum_observed / 40.0, 0.25);
+  EXPECT_EQ(s.calibration[8].count, 40u);
+  EXPECT_DOUBLE_EQ(s.calibration[8].sum_observed / 40.0, 0.75);
+  EXPECT_EQ(s.calibration[5].count, 0u);
+}
+
+TEST(ReturnVerifier, OnTargetStretchesDropReturnsWhereTheBehaviorDeviated) {
+  ReturnVerifier v(0.5, 100, 100, VerificationMode::kOnTargetStretches);
+  v.Hold(1.0);
+  v.Observe(1.0, 0.5, /*pi=*/1.0);
+  v.Hold(1.0);
+  v.Observe(1.0, 0.5, /*pi=*/0.0);  // the target would not have taken this action
+  EXPECT_EQ(v.stats().unverifiable, 2u);
+}
+
+TEST(ReturnVerifier, ImportanceWeightedReturnsUsePerDecisionRatios) {
+  // gamma 0.5 with termination after two steps: G = rho_0 (c_1 + 0.5 rho_1 c_2).
+  ReturnVerifier v(0.5, 100, 100, VerificationMode::kImportanceWeighted);
+  v.Hold(0.0);
+  v.Observe(1.0, 0.5, 0.5, /*rho=*/2.0);
+  v.Observe(4.0, 0.0, 0.5, /*rho=*/0.5);
+  // 2 * (1 + 0.5 * 0.5 * 4) = 4; error -4.
+  EXPECT_EQ(v.stats().count, 1u);
+  EXPECT_DOUBLE_EQ(v.stats().bias, -4.0);
+}
+
+}  // namespace
+}  // namespace bellwether
