@@ -35,7 +35,7 @@ absl::Status Replay(Pool& pool, CsvFrameReader& reader, const std::string& strea
       return absl::Status(s.code(), absl::StrCat("line ", reader.line(), ": ", s.message()));
     }
     ++n;
-    if (on_row) BW_RETURN_IF_ERROR(on_row(frame.seq(), pool.predictions(stream)));
+    if (on_row) BW_RETURN_IF_ERROR(on_row(frame, pool.predictions(stream)));
   }
   if (rows != nullptr) *rows = n;
   return absl::OkStatus();

@@ -14,10 +14,11 @@
 
 namespace bellwether {
 
-// Called after each row with its 1-based row number and each question's prediction made
-// at that row (before learning from anything after it), in spec question order.
-using ReplayRowCallback =
-    std::function<absl::Status(uint64_t row, absl::Span<const double> predictions)>;
+// Called after each row with its frame (seq = the 1-based row number) and each question's
+// prediction made at that row (before learning from anything after it), in spec question
+// order.
+using ReplayRowCallback = std::function<absl::Status(const v1::Frame& frame,
+                                                     absl::Span<const double> predictions)>;
 
 // Applies every row of `reader` to `pool` as stream `stream`. Stops at the first bad row
 // with its error (file, line, column). Returns the number of rows applied in `rows`.

@@ -17,6 +17,7 @@
 #include "absl/time/clock.h"
 #include "client/bellwether_client.h"
 #include "client/cli/campus_sim.h"
+#include "client/cli/replay_summary.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
 #include "core/pool.h"
@@ -46,7 +47,10 @@ constexpr char kUsage[] =
     "  predict --pool P --stream S          print a stream's current answers\n"
     "  replay --spec F.json --csv F.csv --out PRED.csv\n"
     "                                       run a spec over history in-process (no server);\n"
-    "                                       PRED.csv has each row's predictions\n"
+    "                                       PRED.csv has each row's predictions;\n"
+    "                                       --summary [--score-from-row N] prints each\n"
+    "                                       question's verified error beside persistence\n"
+    "                                       and last-week baselines on the same rows\n"
     "  demo [--rate N] [--steps N]          apply the demo pool and stream a simulated campus\n"
     "\n"
     "options:\n"
@@ -80,7 +84,7 @@ bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
       if (eq != std::string::npos) {
         value = name.substr(eq + 1);
         name = name.substr(0, eq);
-      } else if (name == "help") {
+      } else if (name == "help" || name == "summary") {
         value = "1";
       } else if (i + 1 < argc) {
         value = argv[++i];
@@ -224,6 +228,13 @@ int Replay(const Args& args) {
   if (spec_flag == args.flags.end() || csv == args.flags.end() || out == args.flags.end()) {
     return UsageError("replay: expected --spec F.json --csv F.csv --out PRED.csv");
   }
+  const bool summary = args.flags.count("summary") > 0;
+  uint64_t score_from = 1;
+  if (auto it = args.flags.find("score-from-row"); it != args.flags.end()) {
+    if (!absl::SimpleAtoi(it->second, &score_from) || score_from < 1) {
+      return UsageError("--score-from-row: expected a row number >= 1");
+    }
+  }
   auto spec = ReadPoolSpecFile(spec_flag->second);
   if (!spec.ok()) return UsageError(std::string(spec.status().message()));
   auto pool = Pool::Create(*spec);
@@ -232,14 +243,20 @@ int Replay(const Args& args) {
   if (!reader.ok()) return UsageError(std::string(reader.status().message()));
   std::ofstream file(out->second);
   if (!file) return UsageError(absl::StrCat(out->second, ": cannot open for writing"));
+  std::unique_ptr<ReplaySummary> scorer;
+  if (summary) {
+    scorer = std::make_unique<ReplaySummary>(**pool, score_from);
+    scorer->SetColumns((*reader)->signal_columns());
+  }
   file << "row";
   for (const CompiledQuestion& q : (*pool)->spec().questions) file << "," << q.name;
   file << "\n";
   uint64_t rows = 0;
   const absl::Status s = bellwether::Replay(
       **pool, **reader, "replay",
-      [&](uint64_t row, absl::Span<const double> predictions) {
-        file << row;
+      [&](const v1::Frame& frame, absl::Span<const double> predictions) {
+        if (scorer) scorer->OnRow(frame);
+        file << frame.seq();
         for (double v : predictions) file << absl::StrFormat(",%.17g", v);
         file << "\n";
         return absl::OkStatus();
@@ -252,6 +269,7 @@ int Replay(const Args& args) {
   }
   if (!file) return UsageError(absl::StrCat(out->second, ": write failed"));
   std::cout << "replayed " << rows << " rows; predictions in " << out->second << "\n";
+  if (scorer) scorer->Print(std::cout);
   return kExitOk;
 }
 
@@ -360,7 +378,7 @@ int Main(int argc, char** argv) {
     return Predict(args);
   }
   if (args.command == "replay") {
-    if (!OnlyFlags(args, {"spec", "csv", "out"}, &bad)) {
+    if (!OnlyFlags(args, {"spec", "csv", "out", "summary", "score-from-row"}, &bad)) {
       return UsageError("replay: unknown flag --" + bad);
     }
     return Replay(args);
