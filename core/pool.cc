@@ -54,6 +54,12 @@ Pool::Pool(CompiledPoolSpec spec)
     for (const BlockSpec& b : spec_.blocks) {
       pooled_params_.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
     }
+    pooled_regression_.resize(spec_.questions.size());
+    pooled_regression_updates_.assign(spec_.questions.size(), 0);
+    for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+      const int t = spec_.questions[qi].successor;
+      if (t >= 0) pooled_regression_[qi].assign(spec_.tables[static_cast<size_t>(t)].count, 0.0);
+    }
   }
   const size_t nq = spec_.questions.size();
   extended_.resize(spec_.num_extended_signals());
@@ -78,25 +84,49 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
   }
   // Matching questions: new index -> old index.
   std::vector<int> from(pool->spec_.questions.size(), -1);
-  for (size_t n = 0; n < pool->spec_.questions.size(); ++n) {
-    for (size_t o = 0; o < old.spec_.questions.size(); ++o) {
-      if (old.spec_.questions[o].name == pool->spec_.questions[n].name &&
-          MessageDifferencer::Equals(LearningFields(old.spec_.proto.questions(static_cast<int>(o))),
-                                     LearningFields(spec.questions(static_cast<int>(n))))) {
-        from[n] = static_cast<int>(o);
+  // The successor table (proto) a compiled question belongs to, if internal.
+  auto table_of = [](const Pool& p, size_t qi) -> const v1::SuccessorTable* {
+    const CompiledPoolSpec& cs = p.spec_;
+    for (size_t t = 0; t < cs.tables.size(); ++t) {
+      if (qi >= cs.tables[t].first && qi < cs.tables[t].first + cs.tables[t].count) {
+        return &cs.proto.successor_tables(static_cast<int>(t));
       }
+    }
+    return nullptr;
+  };
+  for (size_t n = 0; n < pool->spec_.questions.size(); ++n) {
+    const bool n_visible = n < pool->spec_.num_visible_questions;
+    for (size_t o = 0; o < old.spec_.questions.size(); ++o) {
+      if (old.spec_.questions[o].name != pool->spec_.questions[n].name) continue;
+      const bool o_visible = o < old.spec_.num_visible_questions;
+      if (n_visible != o_visible) continue;
+      const bool same =
+          n_visible
+              ? MessageDifferencer::Equals(
+                    LearningFields(old.spec_.proto.questions(static_cast<int>(o))),
+                    LearningFields(spec.questions(static_cast<int>(n))))
+              : MessageDifferencer::Equals(*table_of(old, o), *table_of(*pool, n));
+      if (same) from[n] = static_cast<int>(o);
     }
   }
   auto copy_params = [&](const std::vector<BlockParams>& src, std::vector<BlockParams>& dst) {
     for (size_t n = 0; n < from.size(); ++n) {
-      if (from[n] < 0) continue;
+      if (from[n] < 0 || pool->spec_.questions[n].successor >= 0) continue;
       const CompiledQuestion& nq = pool->spec_.questions[n];
       const CompiledQuestion& oq = old.spec_.questions[static_cast<size_t>(from[n])];
       dst[nq.block].CopyColumnFrom(src[oq.block], static_cast<uint32_t>(oq.index_in_block),
                                    static_cast<uint32_t>(nq.index_in_block));
     }
   };
-  if (pool->spec_.pooled) copy_params(old.pooled_params_, pool->pooled_params_);
+  if (pool->spec_.pooled) {
+    copy_params(old.pooled_params_, pool->pooled_params_);
+    for (size_t n = 0; n < from.size(); ++n) {
+      if (from[n] < 0 || pool->spec_.questions[n].successor < 0) continue;
+      pool->pooled_regression_[n] = old.pooled_regression_[static_cast<size_t>(from[n])];
+      pool->pooled_regression_updates_[n] =
+          old.pooled_regression_updates_[static_cast<size_t>(from[n])];
+    }
+  }
   pool->normalizer_ = old.normalizer_;
   for (const auto& [name, old_state] : old.streams_) {
     StreamState& s = pool->GetOrCreateStream(name);
@@ -113,6 +143,10 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
       if (from[n] < 0) continue;
       const size_t o = static_cast<size_t>(from[n]);
       s.answers[n] = old_state->answers[o];
+      if (!pool->spec_.pooled && pool->spec_.questions[n].successor >= 0) {
+        s.regression[n] = old_state->regression[o];
+        s.regression_updates[n] = old_state->regression_updates[o];
+      }
       s.greedy_actions[n] = old_state->greedy_actions[o];
       s.verifiers[n] = old_state->verifiers[o];
     }
@@ -154,6 +188,14 @@ Pool::StreamState& Pool::GetOrCreateStream(absl::string_view stream) {
           });
     }
   }
+  if (!spec_.pooled) {
+    state->regression.resize(spec_.questions.size());
+    state->regression_updates.assign(spec_.questions.size(), 0);
+    for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+      const int t = spec_.questions[qi].successor;
+      if (t >= 0) state->regression[qi].assign(spec_.tables[static_cast<size_t>(t)].count, 0.0);
+    }
+  }
   if (spec_.estimate_behavior) {
     state->behavior_counts.assign((spec_.behavior_cells->num_tiles() + 1) * num_actions_, 0);
   }
@@ -186,6 +228,69 @@ std::optional<int64_t> Pool::AbsoluteTime(const FrameInput& frame) const {
     }
   }
   return std::nullopt;
+}
+
+double Pool::TransitionCumulant(const CompiledCumulant& c, const FrameInput& frame,
+                                const std::optional<int64_t>& now, const StreamState& s) const {
+  switch (c.kind) {
+    case CumulantKind::kSignal:
+      return frame.values[c.signal];
+    case CumulantKind::kIndicator: {
+      const double v = frame.values[c.condition.signal];
+      return std::isnan(v) ? kNaN : (c.condition.Holds(v) ? 1.0 : 0.0);
+    }
+    case CumulantKind::kConstant:
+      return c.constant;
+    case CumulantKind::kFramePeriod:
+      if (now.has_value() && s.prev_time_micros.has_value() && *now > *s.prev_time_micros) {
+        return static_cast<double>(*now - *s.prev_time_micros) * 1e-6;
+      }
+      return kNaN;
+    case CumulantKind::kQuestion:
+      return next_answers_[c.question];
+  }
+  return kNaN;
+}
+
+void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
+                                    const std::optional<int64_t>& now, bool learn) {
+  for (size_t qi = 0; qi < spec_.num_visible_questions; ++qi) {
+    const CompiledQuestion& q = spec_.questions[qi];
+    if (q.successor < 0) continue;
+    const SuccessorTableSpec& table = spec_.tables[static_cast<size_t>(q.successor)];
+    std::vector<double>& w = spec_.pooled ? pooled_regression_[qi] : s.regression[qi];
+    uint64_t& updates = spec_.pooled ? pooled_regression_updates_[qi] : s.regression_updates[qi];
+    // The transition as the table's first component saw it.
+    trans_continuation_[qi] = trans_continuation_[table.first];
+    trans_pi_[qi] = trans_pi_[table.first];
+    trans_rho_[qi] = trans_rho_[table.first];
+    trans_cumulant_[qi] = kNaN;
+    if (learn) {
+      // Normalized LMS: c_{t+1} ~ w . phi_{t+1}.
+      const double c = TransitionCumulant(q.cumulant, frame, now, s);
+      double fit = 0, norm = 0;
+      bool complete = !std::isnan(c);
+      for (size_t k = 0; k < table.count && complete; ++k) {
+        const double phi = TransitionCumulant(spec_.questions[table.first + k].cumulant, frame,
+                                              now, s);
+        complete &= !std::isnan(phi);
+        fit += w[k] * phi;
+        norm += phi * phi;
+      }
+      trans_cumulant_[qi] = c;
+      if (complete && norm > 0) {
+        const double step = q.regression_step_size * (c - fit) / norm;
+        for (size_t k = 0; k < table.count; ++k) {
+          w[k] += step * TransitionCumulant(spec_.questions[table.first + k].cumulant, frame, now, s);
+        }
+        ++updates;
+      }
+    }
+    // The answer: psi(S_{t+1}) . w.
+    double answer = 0;
+    for (size_t k = 0; k < table.count; ++k) answer += next_answers_[table.first + k] * w[k];
+    next_answers_[qi] = answer;
+  }
 }
 
 void Pool::PolicyDistribution(const CompiledPolicy& policy, StreamState& s,
@@ -346,29 +451,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     }
     for (size_t i = 0; i < nq; ++i) {
       const size_t qi = block.questions[i];
-      const CompiledCumulant& c = spec_.questions[qi].cumulant;
-      double value = kNaN;
-      switch (c.kind) {
-        case CumulantKind::kSignal:
-          value = frame.values[c.signal];
-          break;
-        case CumulantKind::kIndicator: {
-          const double v = frame.values[c.condition.signal];
-          value = std::isnan(v) ? kNaN : (c.condition.Holds(v) ? 1.0 : 0.0);
-          break;
-        }
-        case CumulantKind::kConstant:
-          value = c.constant;
-          break;
-        case CumulantKind::kFramePeriod:
-          if (now.has_value() && s.prev_time_micros.has_value() && *now > *s.prev_time_micros) {
-            value = static_cast<double>(*now - *s.prev_time_micros) * 1e-6;
-          }
-          break;
-        case CumulantKind::kQuestion:
-          value = next_answers_[c.question];
-          break;
-      }
+      const double value = TransitionCumulant(spec_.questions[qi].cumulant, frame, now, s);
       trans_cumulant_[qi] = continuation_known ? value : kNaN;
       trans_continuation_[qi] = gamma_next;
       trans_pi_[qi] = usable ? pi_taken : 0.0;
@@ -383,6 +466,8 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
       s.greedy_actions[qi] = block.learner == LearnerKind::kQLambda ? greedy : -1;
     }
   }
+
+  if (!spec_.tables.empty()) AnswerSuccessorQuestions(s, frame, now, learn);
 
   // Verified error: held predictions accumulate the transition's cumulant; off-policy
   // questions verify on the target's stretches or with importance weights (see
@@ -424,7 +509,7 @@ bool Pool::has_stream(absl::string_view stream) const { return streams_.contains
 absl::Span<const double> Pool::predictions(absl::string_view stream) const {
   auto it = streams_.find(stream);
   if (it == streams_.end()) return {};
-  return it->second->answers;
+  return absl::MakeConstSpan(it->second->answers).subspan(0, spec_.num_visible_questions);
 }
 
 const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const {
@@ -473,10 +558,8 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
   double norm_sq = 0;
   for (float v : s.prev_x.value) norm_sq += static_cast<double>(v) * static_cast<double>(v);
   std::vector<uint32_t> rows;
-  for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+  for (size_t qi = 0; qi < spec_.num_visible_questions; ++qi) {
     const CompiledQuestion& q = spec_.questions[qi];
-    const BlockSpec& block = spec_.blocks[q.block];
-    const BlockParams& params = ParamsFor(s, q.block);
     v1::Prediction* p = out->add_predictions();
     p->set_question(q.name);
     p->set_value(s.answers[qi]);
@@ -512,8 +595,22 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
         out_bin->set_observed_frequency(bin.sum_observed / static_cast<double>(bin.count));
       }
     }
-    const QuestionCounters& c = params.counters()[q.index_in_block];
     v1::QuestionProgress* pr = p->mutable_progress();
+    if (q.successor >= 0) {
+      // Answered by regression on a successor table: report its updates and the
+      // table's first component's learning progress.
+      pr->set_updates(spec_.pooled ? pooled_regression_updates_[qi] : s.regression_updates[qi]);
+      pr->set_feature_gap_frames(s.feature_gap_frames);
+      const CompiledQuestion& first =
+          spec_.questions[spec_.tables[static_cast<size_t>(q.successor)].first];
+      const QuestionCounters& tc = ParamsFor(s, first.block).counters()[first.index_in_block];
+      pr->set_label(ProgressLabelName(tc.progress.Label(spec_.progress_decay)));
+      pr->set_divergence_resets(tc.divergence_resets);
+      continue;
+    }
+    const BlockSpec& block = spec_.blocks[q.block];
+    const BlockParams& params = ParamsFor(s, q.block);
+    const QuestionCounters& c = params.counters()[q.index_in_block];
     pr->set_updates(c.updates);
     pr->set_skipped_missing(c.skipped_missing);
     pr->set_divergence_resets(c.divergence_resets);

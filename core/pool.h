@@ -59,7 +59,8 @@ class Pool {
   // progress. NOT_FOUND if unknown.
   absl::Status GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const;
 
-  // Current answers of `stream` in question order (empty span if unknown).
+  // Current answers of `stream` in the spec's question order (empty span if unknown);
+  // successor tables' internal components are not included.
   absl::Span<const double> predictions(absl::string_view stream) const;
 
   // Receives every verified prediction of every stream (offline summaries, e.g. the
@@ -95,6 +96,10 @@ class Pool {
     std::vector<ReturnVerifier> verifiers;      // per question
     std::vector<uint32_t> behavior_counts;      // (cells + 1) x actions, when estimating
     uint64_t feature_gap_frames = 0;  // frames with a missing feature input
+    // Successor-table questions (per-stream learning): regression weights w over the
+    // table's phi, by question (empty for other questions), and their update counts.
+    std::vector<std::vector<double>> regression;
+    std::vector<uint64_t> regression_updates;
   };
 
   explicit Pool(CompiledPoolSpec spec);
@@ -106,11 +111,19 @@ class Pool {
                           absl::Span<double> out);
   double EstimateBehavior(StreamState& s, int action);
   std::optional<int64_t> AbsoluteTime(const FrameInput& frame) const;
+  // c_{t+1} of a transition into `frame` (NaN when it cannot be known).
+  double TransitionCumulant(const CompiledCumulant& c, const FrameInput& frame,
+                            const std::optional<int64_t>& now, const StreamState& s) const;
+  // Answers (and, when learning, regresses) the successor-table questions.
+  void AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
+                                const std::optional<int64_t>& now, bool learn);
 
   CompiledPoolSpec spec_;
   uint32_t num_actions_;
   VerificationSink sink_;
   std::vector<BlockParams> pooled_params_;  // per block, pooled learning only
+  std::vector<std::vector<double>> pooled_regression_;  // pooled: per question
+  std::vector<uint64_t> pooled_regression_updates_;
   FeatureRecipe::NormalizerState normalizer_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamState>> streams_;
 

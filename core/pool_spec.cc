@@ -2,6 +2,7 @@
 
 #include <cmath>
 #include <functional>
+#include <limits>
 #include <utility>
 
 #include "absl/container/flat_hash_map.h"
@@ -353,16 +354,33 @@ class Compiler {
                      "the name is used by another question");
       }
     }
+    for (int t = 0; t < spec_.successor_tables_size(); ++t) {
+      const std::string& name = spec_.successor_tables(t).name();
+      const std::string field = absl::StrCat("successor_tables[", t, "]");
+      if (!IsValidName(name, false)) {
+        return Error(field, absl::StrCat("name '", name, "' must be 1..128 letters, digits, '_' or '.'"));
+      }
+      if (!table_index_.emplace(name, t).second) {
+        return Error(field, absl::StrCat("table '", name, "' is declared twice"));
+      }
+      for (int k = 0; k < spec_.successor_tables(t).phi_size(); ++k) {
+        if (question_index_.contains(absl::StrCat(name, ".phi", k))) {
+          return Error(field, absl::StrCat("the name '", name, ".phi", k,
+                                           "' of a table component is used by a question"));
+        }
+      }
+    }
     for (int i = 0; i < spec_.questions_size(); ++i) {
       auto q = CompileQuestion(i);
       if (!q.ok()) return q.status();
       out_.questions.push_back(*std::move(q));
     }
+    if (absl::Status s = CompileTables(); !s.ok()) return s;
     // Greedy targets must name control questions.
-    for (int i = 0; i < spec_.questions_size(); ++i) {
+    for (size_t i = 0; i < out_.questions.size(); ++i) {
       const CompiledQuestion& q = out_.questions[i];
       if (q.policy.kind == PolicyKind::kGreedy && !out_.questions[q.policy.control_question].control) {
-        return Error(absl::StrCat("questions[", i, "] (", q.name, ").policy.greedy"),
+        return Error(absl::StrCat("questions (", q.name, ").policy.greedy"),
                      absl::StrCat("'", out_.questions[q.policy.control_question].name,
                                   "' is not a control question"));
       }
@@ -373,6 +391,98 @@ class Compiler {
   absl::StatusOr<CompiledQuestion> CompileQuestion(int i) {
     const v1::QuestionSpec& q = spec_.questions(i);
     const std::string field = absl::StrCat("questions[", i, "] (", q.name(), ")");
+    if (!q.successor_table().empty()) return CompileSuccessorQuestion(q, field);
+    return CompileQuestionSpec(q, field);
+  }
+
+  // A question answered from a successor table.
+  absl::StatusOr<CompiledQuestion> CompileSuccessorQuestion(const v1::QuestionSpec& q,
+                                                            const std::string& field) {
+    auto it = table_index_.find(q.successor_table());
+    if (it == table_index_.end()) {
+      return Error(field + ".successor_table",
+                   absl::StrCat("unknown successor table '", q.successor_table(), "'"));
+    }
+    const v1::SuccessorTable& table = spec_.successor_tables(it->second);
+    if (q.gamma() != 0.0 && q.gamma() != table.gamma()) {
+      return Error(field + ".gamma", absl::StrCat(q.gamma(), " differs from successor table '",
+                                                  table.name(), "' (", table.gamma(), ")"));
+    }
+    if (q.has_policy() || q.terminate_when_size() > 0 || q.learner() != v1::LEARNER_UNSPECIFIED ||
+        q.step_rule() != v1::STEP_RULE_UNSPECIFIED || q.control()) {
+      return Error(field, "a successor-table question takes the table's policy, termination, "
+                          "learner and step rule: leave them unset");
+    }
+    if (q.regression_step_size() != 0.0 &&
+        !(q.regression_step_size() > 0.0 && q.regression_step_size() <= 1.0)) {
+      return Error(field + ".regression_step_size",
+                   absl::StrCat(q.regression_step_size(), " is outside (0, 1]"));
+    }
+    v1::QuestionSpec as_table = q;
+    as_table.set_gamma(table.gamma());
+    as_table.set_lambda(table.lambda());
+    as_table.clear_successor_table();
+    auto cq = CompileQuestionSpec(as_table, field);
+    if (!cq.ok()) return cq.status();
+    cq->successor = it->second;
+    cq->regression_step_size = q.regression_step_size() == 0.0 ? 0.5 : q.regression_step_size();
+    return cq;
+  }
+
+  // The tables' components become internal questions after the spec's questions.
+  absl::Status CompileTables() {
+    out_.num_visible_questions = out_.questions.size();
+    for (int t = 0; t < spec_.successor_tables_size(); ++t) {
+      const v1::SuccessorTable& table = spec_.successor_tables(t);
+      const std::string field = absl::StrCat("successor_tables[", t, "] (", table.name(), ")");
+      if (table.phi_size() < 1 || table.phi_size() > 64) {
+        return Error(field + ".phi", absl::StrCat("has ", table.phi_size(),
+                                                  " components; 1..64 are allowed"));
+      }
+      SuccessorTableSpec ts{table.name(), out_.questions.size(),
+                            static_cast<size_t>(table.phi_size())};
+      for (int k = 0; k < table.phi_size(); ++k) {
+        const v1::Cumulant& phi = table.phi(k);
+        if (phi.kind_case() != v1::Cumulant::kSignal &&
+            phi.kind_case() != v1::Cumulant::kIndicator &&
+            phi.kind_case() != v1::Cumulant::kConstant) {
+          return Error(absl::StrCat(field, ".phi[", k, "]"),
+                       "must be a signal, an indicator or a constant");
+        }
+        v1::QuestionSpec q;
+        q.set_name(absl::StrCat(table.name(), ".phi", k));
+        *q.mutable_cumulant() = phi;
+        q.set_gamma(table.gamma());
+        q.set_lambda(table.lambda());
+        *q.mutable_terminate_when() = table.terminate_when();
+        if (table.has_policy()) *q.mutable_policy() = table.policy();
+        q.set_learner(table.learner());
+        q.set_step_rule(table.step_rule());
+        q.set_step_size(table.step_size());
+        auto cq = CompileQuestionSpec(q, absl::StrCat(field, ".phi[", k, "]"));
+        if (!cq.ok()) return cq.status();
+        cq->internal = true;
+        if (cq->learner == LearnerKind::kTreeBackup) {
+          return Error(field + ".learner", "TREE_BACKUP tables are not supported");
+        }
+        out_.questions.push_back(*std::move(cq));
+      }
+      out_.tables.push_back(std::move(ts));
+    }
+    // Successor questions depend on their table's components; nobody reads them.
+    for (CompiledQuestion& q : out_.questions) {
+      if (q.cumulant.kind == CumulantKind::kQuestion &&
+          out_.questions[q.cumulant.question].successor >= 0) {
+        return Error("questions (" + q.name + ").cumulant.question",
+                     absl::StrCat("'", out_.questions[q.cumulant.question].name,
+                                  "' is answered from a successor table and cannot be read"));
+      }
+    }
+    return absl::OkStatus();
+  }
+
+  absl::StatusOr<CompiledQuestion> CompileQuestionSpec(const v1::QuestionSpec& q,
+                                                       const std::string& field) {
     CompiledQuestion cq;
     cq.name = q.name();
     cq.control = q.control();
@@ -596,6 +706,10 @@ class Compiler {
       std::vector<size_t> deps;
       if (q.cumulant.kind == CumulantKind::kQuestion) deps.push_back(q.cumulant.question);
       if (q.policy.kind == PolicyKind::kGreedy) deps.push_back(q.policy.control_question);
+      if (q.successor >= 0) {
+        const SuccessorTableSpec& t = out_.tables[static_cast<size_t>(q.successor)];
+        for (size_t k = 0; k < t.count; ++k) deps.push_back(t.first + k);
+      }
       for (size_t d : deps) {
         if (absl::Status s = visit(d); !s.ok()) return s;
         level = std::max(level, out_.questions[d].level + 1);
@@ -618,6 +732,10 @@ class Compiler {
       for (size_t qi = 0; qi < out_.questions.size(); ++qi) {
         CompiledQuestion& q = out_.questions[qi];
         if (q.level != level) continue;
+        if (q.successor >= 0) {
+          q.block = std::numeric_limits<size_t>::max();
+          continue;
+        }
         const double shared = q.learner == LearnerKind::kTrueOnlineTd ? q.step_size : 0.0;
         size_t b = 0;
         for (; b < out_.blocks.size(); ++b) {
@@ -666,6 +784,7 @@ class Compiler {
   absl::flat_hash_map<std::string, size_t> signal_index_;
   absl::flat_hash_map<std::string, int> action_index_;
   absl::flat_hash_map<std::string, int> question_index_;
+  absl::flat_hash_map<std::string, int> table_index_;
 };
 
 }  // namespace

@@ -69,6 +69,11 @@ struct CompiledQuestion {
   double meta_step_size = kDefaultMetaStepSize;
   double rho_clip = 0;  // 0: none
   bool control = false;
+  // Internal: one component of a successor table (not reported as a question).
+  bool internal = false;
+  // Answered from successor table `successor` (index into CompiledPoolSpec::tables), or -1.
+  int successor = -1;
+  double regression_step_size = 0.5;
   // Evaluation order: a question comes after every question it reads.
   int level = 0;
   size_t block = 0;           // which block it belongs to
@@ -93,6 +98,14 @@ struct BlockSpec {
   std::vector<size_t> questions;  // indices into CompiledPoolSpec::questions
 };
 
+// A successor table: its components are internal questions
+// questions[first, first + count), one per phi component, learned in one block.
+struct SuccessorTableSpec {
+  std::string name;
+  size_t first = 0;
+  size_t count = 0;
+};
+
 struct CompiledPoolSpec {
   v1::PoolSpec proto;
   absl::TimeZone time_zone;
@@ -100,8 +113,13 @@ struct CompiledPoolSpec {
   std::vector<std::string> signal_units;
   std::vector<std::string> actions;
   std::shared_ptr<const FeatureRecipe> recipe;
+  // The spec's questions first (num_visible_questions of them), then the successor
+  // tables' internal components.
   std::vector<CompiledQuestion> questions;
-  std::vector<BlockSpec> blocks;  // in evaluation order (by level)
+  size_t num_visible_questions = 0;
+  std::vector<SuccessorTableSpec> tables;
+  std::vector<BlockSpec> blocks;  // in evaluation order (by level); successor-table
+                                  // questions belong to no block
   bool pooled = false;
   double progress_decay = 0.999;
   size_t verify_window = 1000;

@@ -249,7 +249,9 @@ int Replay(const Args& args) {
     scorer->SetColumns((*reader)->signal_columns());
   }
   file << "row";
-  for (const CompiledQuestion& q : (*pool)->spec().questions) file << "," << q.name;
+  for (size_t q = 0; q < (*pool)->spec().num_visible_questions; ++q) {
+    file << "," << (*pool)->spec().questions[q].name;
+  }
   file << "\n";
   uint64_t rows = 0;
   const absl::Status s = bellwether::Replay(

@@ -58,7 +58,7 @@ std::vector<ReplaySummary::QuestionScore> ReplaySummary::Compute() const {
     if (row_time_[i].has_value()) seq_at_time[*row_time_[i]] = i + 1;
   }
   const CompiledPoolSpec& spec = pool_.spec();
-  for (size_t q = 0; q < spec.questions.size(); ++q) {
+  for (size_t q = 0; q < spec.num_visible_questions; ++q) {
     const CompiledQuestion& cq = spec.questions[q];
     QuestionScore score;
     // Persistence needs the cumulant's current value in pool signal order; replay feeds

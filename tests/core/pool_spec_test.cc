@@ -224,6 +224,25 @@ INSTANTIATE_TEST_SUITE_P(
         BadSpecCase{"TooManyTilings",
                     [](v1::PoolSpec* s) { s->mutable_features(0)->mutable_tiles()->set_tilings(65); },
                     "features[0].tiles.tilings: 65 is outside 1..64"},
+        BadSpecCase{"UnknownSuccessorTable",
+                    [](v1::PoolSpec* s) { s->mutable_questions(0)->set_successor_table("sf"); },
+                    ".successor_table: unknown successor table 'sf'"},
+        BadSpecCase{"SuccessorGammaDiffers",
+                    [](v1::PoolSpec* s) {
+                      v1::SuccessorTable* table = s->add_successor_tables();
+                      table->set_name("sf");
+                      table->add_phi()->set_signal("demand_mw");
+                      table->set_gamma(0.5);
+                      s->mutable_questions(0)->set_successor_table("sf");
+                    },
+                    ".gamma: 0.9583 differs from successor table 'sf' (0.5)"},
+        BadSpecCase{"SuccessorPhiKind",
+                    [](v1::PoolSpec* s) {
+                      v1::SuccessorTable* table = s->add_successor_tables();
+                      table->set_name("sf");
+                      table->add_phi()->set_frame_period(true);
+                    },
+                    "successor_tables[0] (sf).phi[0]: must be a signal, an indicator or a constant"},
         BadSpecCase{"BadPoolName", [](v1::PoolSpec* s) { s->set_name("grid one"); },
                     "pool: name 'grid one'"}),
     [](const ::testing::TestParamInfo<BadSpecCase>& p) { return std::string(p.param.name); });

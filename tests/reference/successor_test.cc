@@ -1,0 +1,199 @@
+// Successor tables against closed forms computed with Eigen, and the switch test.
+//
+// Convention: a frame's cumulant is c_{t+1}, read from the frame after the transition, so
+// for a Markov chain with transition matrix P and per-state feature rows Phi,
+//   psi = sum_k gamma^k P^{k+1} Phi = (I - gamma P)^-1 P Phi
+// (the successor representation of Dayan 1993 / successor features of Barreto et al.
+// 2017, "Successor Features for Transfer in Reinforcement Learning", NeurIPS, written for
+// next-state features), and a cumulant c = Phi w has value v = psi w.
+#include <cmath>
+#include <random>
+#include <vector>
+
+#include <Eigen/Dense>
+
+#include "core/pool.h"
+#include "gtest/gtest.h"
+
+namespace bellwether {
+namespace {
+
+constexpr int kStates = 6;
+constexpr double kGamma = 0.8;
+
+struct Chain {
+  Eigen::MatrixXd p;    // kStates x kStates
+  Eigen::MatrixXd phi;  // kStates x 3: a, b, bias
+};
+
+Chain MakeChain(uint32_t seed) {
+  std::mt19937 rng(seed);
+  std::uniform_real_distribution<double> u(0.0, 1.0);
+  Chain c;
+  c.p = Eigen::MatrixXd::Zero(kStates, kStates);
+  for (int i = 0; i < kStates; ++i) {
+    double sum = 0;
+    for (int j = 0; j < kStates; ++j) {
+      c.p(i, j) = u(rng) + 0.05;
+      sum += c.p(i, j);
+    }
+    c.p.row(i) /= sum;
+  }
+  c.phi.resize(kStates, 3);
+  for (int i = 0; i < kStates; ++i) c.phi.row(i) << 4.0 * u(rng) - 2.0, 4.0 * u(rng) - 2.0, 1.0;
+  return c;
+}
+
+// Signals: state, a, b, c (the cumulant of the direct and successor questions).
+v1::PoolSpec MakeSpec(v1::StepRule rule, double step) {
+  v1::PoolSpec spec;
+  spec.set_name("chain");
+  for (const char* name : {"state", "a", "b", "c"}) {
+    v1::SignalSpec* s = spec.add_signals();
+    s->set_name(name);
+    s->set_min(name[0] == 's' ? 0 : -20);
+    s->set_max(name[0] == 's' ? kStates : 20);
+  }
+  v1::TileCoding* t = spec.add_features()->mutable_tiles();
+  t->add_signals("state");
+  t->set_tilings(1);
+  t->set_tiles_per_dim(kStates);
+  v1::SuccessorTable* table = spec.add_successor_tables();
+  table->set_name("sf");
+  table->add_phi()->set_signal("a");
+  table->add_phi()->set_signal("b");
+  table->add_phi()->set_constant(1.0);
+  table->set_gamma(kGamma);
+  table->set_lambda(0.5);
+  table->set_step_rule(rule);
+  table->set_step_size(step);
+  v1::QuestionSpec* via = spec.add_questions();
+  via->set_name("via_table");
+  via->mutable_cumulant()->set_signal("c");
+  via->set_successor_table("sf");
+  v1::QuestionSpec* direct = spec.add_questions();
+  direct->set_name("direct");
+  direct->mutable_cumulant()->set_signal("c");
+  direct->set_gamma(kGamma);
+  direct->set_lambda(0.5);
+  direct->set_step_rule(rule);
+  direct->set_step_size(step);
+  return spec;
+}
+
+class ChainRunner {
+ public:
+  ChainRunner(const Chain& chain, Pool* pool, uint32_t seed) : chain_(chain), pool_(pool), rng_(seed) {}
+  // One step: moves to the next state and applies its frame with cumulant phi(s') . w.
+  int Step(const Eigen::Vector3d& w) {
+    std::vector<double> row(kStates);  // Eigen is column-major: copy the row out
+    for (int j = 0; j < kStates; ++j) row[static_cast<size_t>(j)] = chain_.p(state_, j);
+    std::discrete_distribution<int> next(row.begin(), row.end());
+    state_ = seq_ == 0 ? 0 : next(rng_);
+    const Eigen::Vector3d f = chain_.phi.row(state_).transpose();
+    std::vector<double> v = {static_cast<double>(state_), f(0), f(1), f.dot(w)};
+    FrameInput in;
+    in.seq = ++seq_;
+    in.values = v;
+    EXPECT_TRUE(pool_->Apply("s", in).ok());
+    return state_;
+  }
+
+ private:
+  const Chain& chain_;
+  Pool* pool_;
+  std::mt19937 rng_;
+  int state_ = 0;
+  uint64_t seq_ = 0;
+};
+
+Eigen::MatrixXd Psi(const Chain& c) {
+  const Eigen::MatrixXd i = Eigen::MatrixXd::Identity(kStates, kStates);
+  return (i - kGamma * c.p).lu().solve(c.p * c.phi);
+}
+
+TEST(SuccessorTable, PsiMatchesTheClosedFormAndPsiTimesWTheDirectValue) {
+  const Chain chain = MakeChain(4);
+  auto pool = Pool::Create(MakeSpec(v1::FIXED, 0.01));
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  ChainRunner run(chain, pool->get(), 17);
+  const Eigen::Vector3d w(2.0, -1.0, 3.0);
+  Eigen::MatrixXd avg = Eigen::MatrixXd::Zero(kStates, 3);
+  const int steps = 300000, burn = 100000;
+  for (int t = 0; t < steps; ++t) {
+    run.Step(w);
+    if (t >= burn) {
+      // The table's components are the internal questions after the spec's two; with
+      // one-hot features, weight row s of component k's column is psi_k(s).
+      for (int k = 0; k < 3; ++k) {
+        const CompiledQuestion& component = (*pool)->spec().questions[2 + k];
+        const BlockParams* table = (*pool)->block_params("s", component.block);
+        for (int s = 0; s < kStates; ++s) {
+          avg(s, k) += static_cast<double>(
+              table->row(static_cast<uint32_t>(s))[component.index_in_block]);
+        }
+      }
+    }
+  }
+  avg /= steps - burn;
+  const Eigen::MatrixXd psi = Psi(chain);
+  const double scale = psi.cwiseAbs().maxCoeff();
+  // Tolerance: 3 % of the largest |psi| (the constant-step iterate averaged over 200,000
+  // steps; measured well inside it).
+  EXPECT_LT((avg - psi).cwiseAbs().maxCoeff(), 0.03 * scale) << "learned\n"
+                                                           << avg << "\nclosed form\n"
+                                                           << psi;
+  // The successor question's answer at the current state against v = psi w.
+  const Eigen::VectorXd v = psi * w;
+  int state = run.Step(w);
+  for (int t = 0; t < 50; ++t) {
+    const double answer = (*pool)->predictions("s")[0];
+    EXPECT_NEAR(answer, v(state), 0.05 * v.cwiseAbs().maxCoeff()) << "state " << state;
+    state = run.Step(w);
+  }
+}
+
+// When the cumulant's weights on phi change abruptly, the table's answer recovers in
+// about the time the regression needs, far sooner than a directly learned TD question
+// with the same step-size rule (AUTOSTEP, same initial step). Recovery: the RMS error
+// over a sliding window of 50 steps falls under 20 % of the RMS true value (both answers'
+// steady error before the switch is about 10 % here: the table's psi and the direct
+// weights keep some noise from the chain's random transitions). Measured ratio 9.0 on
+// this seed; 6.7 to 29 on four other trajectory seeds.
+TEST(SuccessorTable, RecoversFromACumulantSwitchAtLeastFiveTimesSooner) {
+  const Chain chain = MakeChain(6);
+  auto pool = Pool::Create(MakeSpec(v1::AUTOSTEP, 0.1));
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  ChainRunner run(chain, pool->get(), 23);
+  const Eigen::Vector3d before(2.0, -1.0, 3.0), after(-3.0, 2.0, 1.0);
+  for (int t = 0; t < 50000; ++t) run.Step(before);
+  const Eigen::VectorXd v = Psi(chain) * after;
+  const double scale = std::sqrt(v.squaredNorm() / kStates);
+  const int window = 50;
+  std::vector<double> sq_via, sq_direct;
+  int recovered_via = -1, recovered_direct = -1;
+  for (int t = 0; t < 100000 && (recovered_via < 0 || recovered_direct < 0); ++t) {
+    const int s = run.Step(after);
+    const auto p = (*pool)->predictions("s");
+    sq_via.push_back((p[0] - v(s)) * (p[0] - v(s)));
+    sq_direct.push_back((p[1] - v(s)) * (p[1] - v(s)));
+    if (t + 1 < window) continue;
+    auto rms = [&](const std::vector<double>& sq) {
+      double sum = 0;
+      for (size_t i = sq.size() - window; i < sq.size(); ++i) sum += sq[i];
+      return std::sqrt(sum / window);
+    };
+    if (recovered_via < 0 && rms(sq_via) < 0.2 * scale) recovered_via = t + 1;
+    if (recovered_direct < 0 && rms(sq_direct) < 0.2 * scale) recovered_direct = t + 1;
+  }
+  ASSERT_GT(recovered_via, 0);
+  ASSERT_GT(recovered_direct, 0) << "direct TD never recovered within 100,000 steps";
+  const double ratio = static_cast<double>(recovered_direct) / recovered_via;
+  std::printf("switch recovery: successor table %d steps, direct TD %d steps, ratio %.1f\n",
+              recovered_via, recovered_direct, ratio);
+  RecordProperty("recovery_ratio", std::to_string(ratio));
+  EXPECT_GE(ratio, 5.0);
+}
+
+}  // namespace
+}  // namespace bellwether
