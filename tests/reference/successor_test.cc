@@ -84,6 +84,8 @@ v1::PoolSpec MakeSpec(v1::StepRule rule, double step) {
 class ChainRunner {
  public:
   ChainRunner(const Chain& chain, Pool* pool, uint32_t seed) : chain_(chain), pool_(pool), rng_(seed) {}
+  // Continue the same trajectory on another pool (one made by Pool::CreateFrom).
+  void set_pool(Pool* pool) { pool_ = pool; }
   // One step: moves to the next state and applies its frame with cumulant phi(s') . w.
   int Step(const Eigen::Vector3d& w) {
     std::vector<double> row(kStates);  // Eigen is column-major: copy the row out
@@ -193,6 +195,46 @@ TEST(SuccessorTable, RecoversFromACumulantSwitchAtLeastFiveTimesSooner) {
               recovered_via, recovered_direct, ratio);
   RecordProperty("recovery_ratio", std::to_string(ratio));
   EXPECT_GE(ratio, 5.0);
+}
+
+// A question added to an existing table answers sensibly at once: its w is a 3-number
+// regression, while a new directly learned question must learn a whole value function.
+TEST(SuccessorTable, AQuestionAddedToATrainedTableAnswersAtOnce) {
+  const Chain chain = MakeChain(5);
+  v1::PoolSpec spec = MakeSpec(v1::AUTOSTEP, 0.1);
+  auto pool = Pool::Create(spec);
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  ChainRunner run(chain, pool->get(), 31);
+  const Eigen::Vector3d w(2.0, -1.0, 3.0);
+  for (int t = 0; t < 50000; ++t) run.Step(w);
+  // Add two questions about signal b (= phi . (0, 1, 0)): one on the table, one direct.
+  v1::QuestionSpec* on_table = spec.add_questions();
+  on_table->set_name("b_via_table");
+  on_table->mutable_cumulant()->set_signal("b");
+  on_table->set_successor_table("sf");
+  v1::QuestionSpec* direct = spec.add_questions();
+  *direct = spec.questions(1);
+  direct->set_name("b_direct");
+  direct->mutable_cumulant()->set_signal("b");
+  auto grown = Pool::CreateFrom(**pool, spec);
+  ASSERT_TRUE(grown.ok()) << grown.status();
+  run.set_pool(grown->get());
+  const Eigen::VectorXd v = Psi(chain) * Eigen::Vector3d(0.0, 1.0, 0.0);
+  const double scale = std::sqrt(v.squaredNorm() / kStates);
+  // Score the 50 frames after the first 50 (the regression's first steps).
+  double sq_table = 0, sq_direct = 0;
+  for (int t = 0; t < 100; ++t) {
+    const int s = run.Step(w);
+    if (t < 50) continue;
+    const auto p = (*grown)->predictions("s");
+    sq_table += (p[2] - v(s)) * (p[2] - v(s));
+    sq_direct += (p[3] - v(s)) * (p[3] - v(s));
+  }
+  const double rms_table = std::sqrt(sq_table / 50), rms_direct = std::sqrt(sq_direct / 50);
+  std::printf("new question, frames 51-100: table RMS %.3f, direct RMS %.3f, scale %.3f\n",
+              rms_table, rms_direct, scale);
+  EXPECT_LT(rms_table, 0.2 * scale);
+  EXPECT_GT(rms_direct, 3 * rms_table);
 }
 
 }  // namespace
