@@ -286,10 +286,35 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
         ++updates;
       }
     }
-    // The answer: psi(S_{t+1}) . w.
-    double answer = 0;
-    for (size_t k = 0; k < table.count; ++k) answer += next_answers_[table.first + k] * w[k];
-    next_answers_[qi] = answer;
+    if (q.gpi_tables.empty()) {
+      // The answer: psi(S_{t+1}) . w.
+      double answer = 0;
+      for (size_t k = 0; k < table.count; ++k) answer += next_answers_[table.first + k] * w[k];
+      next_answers_[qi] = answer;
+      continue;
+    }
+    // Generalized policy improvement: max_a max_i psi_i(S_{t+1}, a) . w.
+    double best = -std::numeric_limits<double>::infinity();
+    int best_action = 0;
+    for (int ti : q.gpi_tables) {
+      const SuccessorTableSpec& t = spec_.tables[static_cast<size_t>(ti)];
+      std::fill(pi_now_.begin(), pi_now_.end(), 0.0);  // scratch: sum_k psi_k(s, a) w_k
+      for (size_t k = 0; k < t.count; ++k) {
+        const CompiledQuestion& component = spec_.questions[t.first + k];
+        learner_.ActionValues(next_x_, ParamsFor(s, component.block),
+                              static_cast<uint32_t>(component.index_in_block),
+                              absl::MakeSpan(q_values_));
+        for (uint32_t a = 0; a < num_actions_; ++a) pi_now_[a] += q_values_[a] * w[k];
+      }
+      for (uint32_t a = 0; a < num_actions_; ++a) {
+        if (pi_now_[a] > best) {
+          best = pi_now_[a];
+          best_action = static_cast<int>(a);
+        }
+      }
+    }
+    next_answers_[qi] = best;
+    s.greedy_actions[qi] = best_action;
   }
 }
 
@@ -474,7 +499,8 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
   // ReturnVerifier).
   for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
     ReturnVerifier& verifier = s.verifiers[qi];
-    if (frame.restart) {
+    if (frame.restart || !spec_.questions[qi].gpi_tables.empty()) {
+      // A GPI answer is about a policy the behavior does not follow: not verified.
       verifier.Interrupt();
     } else if (learn) {
       verifier.Observe(trans_cumulant_[qi], trans_continuation_[qi], trans_pi_[qi],
@@ -564,7 +590,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     p->set_question(q.name);
     p->set_value(s.answers[qi]);
     p->set_unit(q.unit);
-    if (q.control && s.greedy_actions[qi] >= 0) {
+    if ((q.control || !q.gpi_tables.empty()) && s.greedy_actions[qi] >= 0) {
       p->set_greedy_action(spec_.actions[static_cast<size_t>(s.greedy_actions[qi])]);
     }
     const VerifiedErrorStats st = s.verifiers[qi].stats();

@@ -391,14 +391,45 @@ class Compiler {
   absl::StatusOr<CompiledQuestion> CompileQuestion(int i) {
     const v1::QuestionSpec& q = spec_.questions(i);
     const std::string field = absl::StrCat("questions[", i, "] (", q.name(), ")");
-    if (!q.successor_table().empty()) return CompileSuccessorQuestion(q, field);
+    if (!q.successor_table().empty() || q.gpi_tables_size() > 0) {
+      return CompileSuccessorQuestion(q, field);
+    }
     return CompileQuestionSpec(q, field);
   }
 
   // A question answered from a successor table.
   absl::StatusOr<CompiledQuestion> CompileSuccessorQuestion(const v1::QuestionSpec& q,
                                                             const std::string& field) {
-    auto it = table_index_.find(q.successor_table());
+    std::vector<int> gpi;
+    if (q.gpi_tables_size() > 0) {
+      if (!q.successor_table().empty()) {
+        return Error(field, "give successor_table or gpi_tables, not both");
+      }
+      for (int i = 0; i < q.gpi_tables_size(); ++i) {
+        const std::string f = absl::StrCat(field, ".gpi_tables[", i, "]");
+        auto t = table_index_.find(q.gpi_tables(i));
+        if (t == table_index_.end()) {
+          return Error(f, absl::StrCat("unknown successor table '", q.gpi_tables(i), "'"));
+        }
+        const v1::SuccessorTable& table = spec_.successor_tables(t->second);
+        const v1::SuccessorTable& first = spec_.successor_tables(table_index_.at(q.gpi_tables(0)));
+        if (table.learner() != v1::TREE_BACKUP) {
+          return Error(f, absl::StrCat("table '", table.name(),
+                                       "' must learn action values (learner TREE_BACKUP)"));
+        }
+        bool same_phi = table.phi_size() == first.phi_size() && table.gamma() == first.gamma();
+        for (int k = 0; same_phi && k < table.phi_size(); ++k) {
+          same_phi = table.phi(k).SerializeAsString() == first.phi(k).SerializeAsString();
+        }
+        if (!same_phi) {
+          return Error(f, absl::StrCat("table '", table.name(), "' differs from '", first.name(),
+                                       "' in phi or gamma"));
+        }
+        gpi.push_back(t->second);
+      }
+    }
+    auto it = table_index_.find(gpi.empty() ? q.successor_table()
+                                            : spec_.successor_tables(gpi[0]).name());
     if (it == table_index_.end()) {
       return Error(field + ".successor_table",
                    absl::StrCat("unknown successor table '", q.successor_table(), "'"));
@@ -425,6 +456,7 @@ class Compiler {
     auto cq = CompileQuestionSpec(as_table, field);
     if (!cq.ok()) return cq.status();
     cq->successor = it->second;
+    cq->gpi_tables = gpi;
     cq->regression_step_size = q.regression_step_size() == 0.0 ? 0.5 : q.regression_step_size();
     return cq;
   }
@@ -462,9 +494,6 @@ class Compiler {
         auto cq = CompileQuestionSpec(q, absl::StrCat(field, ".phi[", k, "]"));
         if (!cq.ok()) return cq.status();
         cq->internal = true;
-        if (cq->learner == LearnerKind::kTreeBackup) {
-          return Error(field + ".learner", "TREE_BACKUP tables are not supported");
-        }
         out_.questions.push_back(*std::move(cq));
       }
       out_.tables.push_back(std::move(ts));
@@ -707,8 +736,12 @@ class Compiler {
       if (q.cumulant.kind == CumulantKind::kQuestion) deps.push_back(q.cumulant.question);
       if (q.policy.kind == PolicyKind::kGreedy) deps.push_back(q.policy.control_question);
       if (q.successor >= 0) {
-        const SuccessorTableSpec& t = out_.tables[static_cast<size_t>(q.successor)];
-        for (size_t k = 0; k < t.count; ++k) deps.push_back(t.first + k);
+        std::vector<int> tables = q.gpi_tables;
+        if (tables.empty()) tables.push_back(q.successor);
+        for (int ti : tables) {
+          const SuccessorTableSpec& t = out_.tables[static_cast<size_t>(ti)];
+          for (size_t k = 0; k < t.count; ++k) deps.push_back(t.first + k);
+        }
       }
       for (size_t d : deps) {
         if (absl::Status s = visit(d); !s.ok()) return s;

@@ -74,6 +74,8 @@ struct CompiledQuestion {
   // Answered from successor table `successor` (index into CompiledPoolSpec::tables), or -1.
   int successor = -1;
   double regression_step_size = 0.5;
+  // Generalized policy improvement over these tables (the first is `successor`).
+  std::vector<int> gpi_tables;
   // Evaluation order: a question comes after every question it reads.
   int level = 0;
   size_t block = 0;           // which block it belongs to

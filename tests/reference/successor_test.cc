@@ -6,7 +6,9 @@
 // (the successor representation of Dayan 1993 / successor features of Barreto et al.
 // 2017, "Successor Features for Transfer in Reinforcement Learning", NeurIPS, written for
 // next-state features), and a cumulant c = Phi w has value v = psi w.
+#include <algorithm>
 #include <cmath>
+#include <string>
 #include <random>
 #include <vector>
 
@@ -235,6 +237,104 @@ TEST(SuccessorTable, AQuestionAddedToATrainedTableAnswersAtOnce) {
               rms_table, rms_direct, scale);
   EXPECT_LT(rms_table, 0.2 * scale);
   EXPECT_GT(rms_direct, 3 * rms_table);
+}
+
+// Generalized policy improvement (Barreto, Dabney, Munos, Hunt, Schaul, van Hasselt &
+// Silver 2017, "Successor Features for Transfer in Reinforcement Learning", NeurIPS,
+// Theorem 1): with action-valued successor tables for two fixed policies on a corridor
+// of four states (actions left/right, walls at the ends), a GPI question answers
+// max_a max_i q_i(s, a) where q_i(s, a) = c(s') + gamma v_i(s'), v_i = (I - gamma P_i)^-1 P_i c
+// (Eigen), and its greedy action is the maximizing one.
+TEST(SuccessorTable, GeneralizedPolicyImprovementOverTwoPolicies) {
+  v1::PoolSpec spec;
+  spec.set_name("corridor");
+  for (const char* name : {"state", "left_end", "right_end", "reward"}) {
+    v1::SignalSpec* s = spec.add_signals();
+    s->set_name(name);
+    s->set_min(0);
+    s->set_max(name[0] == 's' ? 4 : 5);
+  }
+  spec.add_actions("left");
+  spec.add_actions("right");
+  v1::TileCoding* tiles = spec.add_features()->mutable_tiles();
+  tiles->add_signals("state");
+  tiles->set_tilings(1);
+  tiles->set_tiles_per_dim(4);
+  for (const char* policy : {"left", "right"}) {
+    v1::SuccessorTable* t = spec.add_successor_tables();
+    t->set_name(std::string("always_") + policy);
+    t->add_phi()->set_signal("left_end");
+    t->add_phi()->set_signal("right_end");
+    t->set_gamma(0.8);
+    t->set_lambda(0.5);
+    t->mutable_policy()->set_action(policy);
+    t->set_learner(v1::TREE_BACKUP);
+    t->set_step_rule(v1::FIXED);
+    t->set_step_size(0.05);
+  }
+  v1::QuestionSpec* q = spec.add_questions();
+  q->set_name("best");
+  q->mutable_cumulant()->set_signal("reward");
+  q->add_gpi_tables("always_left");
+  q->add_gpi_tables("always_right");
+  auto pool = Pool::Create(spec);
+  ASSERT_TRUE(pool.ok()) << pool.status();
+
+  // Reward 3 at the left wall, 2 at the right wall.
+  const double reward_left = 3.0, reward_right = 2.0, gamma = 0.8;
+  std::mt19937 rng(41);
+  std::bernoulli_distribution coin(0.5);
+  int state = 1;
+  std::vector<double> answer_at(4, 0.0);
+  std::vector<std::string> greedy_at(4);
+  for (uint64_t t = 1; t <= 200000; ++t) {
+    const bool right = coin(rng);
+    const double left_end = state == 0 ? 1.0 : 0.0, right_end = state == 3 ? 1.0 : 0.0;
+    std::vector<double> v = {static_cast<double>(state), left_end, right_end,
+                             reward_left * left_end + reward_right * right_end};
+    FrameInput in;
+    in.seq = t;
+    in.values = v;
+    in.action = right ? 1u : 0u;
+    in.behavior_prob = 0.5;
+    ASSERT_TRUE((*pool)->Apply("s", in).ok());
+    if (t > 190000) {
+      v1::StreamPredictions p;
+      ASSERT_TRUE((*pool)->GetPredictions("s", &p).ok());
+      answer_at[static_cast<size_t>(state)] = p.predictions(0).value();
+      greedy_at[static_cast<size_t>(state)] = p.predictions(0).greedy_action();
+    }
+    state = std::clamp(state + (right ? 1 : -1), 0, 3);
+  }
+  // Closed form.
+  Eigen::VectorXd c(4);
+  c << reward_left, 0, 0, reward_right;
+  auto move = [](int s, int a) { return std::clamp(s + (a == 1 ? 1 : -1), 0, 3); };
+  Eigen::MatrixXd v(4, 2);
+  for (int policy = 0; policy < 2; ++policy) {
+    Eigen::MatrixXd p = Eigen::MatrixXd::Zero(4, 4);
+    for (int s = 0; s < 4; ++s) p(s, move(s, policy)) = 1.0;
+    v.col(policy) = (Eigen::MatrixXd::Identity(4, 4) - gamma * p).lu().solve(p * c);
+  }
+  for (int s = 0; s < 4; ++s) {
+    double best = -1e300;
+    int best_action = 0;
+    for (int a = 0; a < 2; ++a) {
+      for (int policy = 0; policy < 2; ++policy) {
+        const int next = move(s, a);
+        const double q_value = c(next) + gamma * v(next, policy);
+        if (q_value > best) {
+          best = q_value;
+          best_action = a;
+        }
+      }
+    }
+    // At least as good as either policy alone (GPI's guarantee).
+    EXPECT_GE(best + 1e-12, std::max(v(s, 0), v(s, 1)));
+    EXPECT_NEAR(answer_at[static_cast<size_t>(s)], best, 0.05 * best) << "state " << s;
+    EXPECT_EQ(greedy_at[static_cast<size_t>(s)], best_action == 1 ? "right" : "left")
+        << "state " << s;
+  }
 }
 
 }  // namespace
