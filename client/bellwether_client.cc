@@ -75,15 +75,17 @@ std::unique_ptr<Client> Client::Connect(const std::string& target) {
 Client::Client(std::shared_ptr<grpc::Channel> channel)
     : channel_(std::move(channel)), stub_(v1::Bellwether::NewStub(channel_)) {}
 
-absl::StatusOr<bool> Client::ApplyPool(const v1::PoolSpec& spec, absl::Duration timeout) {
+absl::StatusOr<v1::ApplyPoolResponse> Client::ApplyPool(const v1::PoolSpec& spec, bool dry_run,
+                                                        absl::Duration timeout) {
   grpc::ClientContext context;
   SetDeadline(&context, timeout);
   v1::ApplyPoolRequest request;
   *request.mutable_spec() = spec;
+  request.set_dry_run(dry_run);
   v1::ApplyPoolResponse response;
   const grpc::Status s = stub_->ApplyPool(&context, request, &response);
   if (!s.ok()) return FromGrpc(s);
-  return response.created();
+  return response;
 }
 
 absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(

@@ -1,7 +1,7 @@
 // A small C++ client for bellwetherd: apply pool specs, stream frames, read answers.
 //
 //   auto client = bellwether::Client::Connect("127.0.0.1:50151");
-//   auto created = client->ApplyPool(spec);
+//   auto applied = client->ApplyPool(spec);        // applied->created(), ->added(), ...
 //   auto session = client->OpenIngest("campus", "hall-a", {"power_kw", "energy_kwh"});
 //   auto ack = (*session)->Send(batch);           // waits for the batch's acknowledgement
 //   auto answers = client->Predict("campus", "hall-a");
@@ -51,9 +51,10 @@ class Client {
   // Connects lazily (plaintext) to `target` ("HOST:PORT").
   static std::unique_ptr<Client> Connect(const std::string& target);
 
-  // Creates the pool; true if created, false if an identical one existed.
-  absl::StatusOr<bool> ApplyPool(const v1::PoolSpec& spec,
-                                 absl::Duration timeout = absl::Seconds(10));
+  // Creates or updates the pool (unchanged questions keep their learned state) and says
+  // what changed; with `dry_run`, only validates and reports.
+  absl::StatusOr<v1::ApplyPoolResponse> ApplyPool(const v1::PoolSpec& spec, bool dry_run = false,
+                                                  absl::Duration timeout = absl::Seconds(10));
   // Opens an ingest stream for one stream of a pool. `columns` gives the order of
   // Frame.values (empty: the pool's declared order). Fails if the server rejects the open.
   absl::StatusOr<std::unique_ptr<IngestSession>> OpenIngest(

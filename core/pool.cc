@@ -8,6 +8,7 @@
 #include "absl/strings/str_cat.h"
 #include "absl/time/civil_time.h"
 #include "core/clock_signals.h"
+#include "core/spec_diff.h"
 #include "core/status_macros.h"
 #include "google/protobuf/util/message_differencer.h"
 
@@ -20,15 +21,6 @@ constexpr double kNaN = std::numeric_limits<double>::quiet_NaN();
 v1::QuestionSpec LearningFields(const v1::QuestionSpec& q) {
   v1::QuestionSpec out = q;
   out.clear_unit();
-  return out;
-}
-
-// Fields of a pool spec that change the feature table or what a frame means.
-v1::PoolSpec RecipeFields(const v1::PoolSpec& p) {
-  v1::PoolSpec out = p;
-  out.clear_name();
-  out.clear_questions();
-  for (v1::SignalSpec& s : *out.mutable_signals()) s.clear_unit();
   return out;
 }
 
@@ -79,7 +71,7 @@ Pool::Pool(CompiledPoolSpec spec)
 absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1::PoolSpec& spec) {
   BW_ASSIGN_OR_RETURN(std::unique_ptr<Pool> pool, Create(spec));
   using google::protobuf::util::MessageDifferencer;
-  if (!MessageDifferencer::Equals(RecipeFields(old.spec_.proto), RecipeFields(spec))) {
+  if (DiffPoolSpecs(old.spec_.proto, spec).recipe_changed) {
     return pool;  // a different feature table: nothing learned carries over
   }
   // Matching questions: new index -> old index.
@@ -536,6 +528,12 @@ absl::Span<const double> Pool::predictions(absl::string_view stream) const {
   auto it = streams_.find(stream);
   if (it == streams_.end()) return {};
   return absl::MakeConstSpan(it->second->answers).subspan(0, spec_.num_visible_questions);
+}
+
+std::vector<std::string> Pool::stream_names() const {
+  std::vector<std::string> names;
+  for (const auto& [name, state] : streams_) names.push_back(name);
+  return names;
 }
 
 const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const {

@@ -54,6 +54,7 @@ class Pool {
   uint64_t last_seq(absl::string_view stream) const;
   bool has_stream(absl::string_view stream) const;
   size_t num_streams() const { return streams_.size(); }
+  std::vector<std::string> stream_names() const;
 
   // The stream's answers as of its last applied frame, with verified error and
   // progress. NOT_FOUND if unknown.

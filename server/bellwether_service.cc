@@ -36,9 +36,9 @@ grpc::Status BellwetherService::ApplyPool(grpc::ServerContext*,
   if (!request->has_spec()) {
     return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, "spec: required");
   }
-  auto created = registry_->Apply(request->spec());
-  if (!created.ok()) return ToGrpc(created.status());
-  response->set_created(*created);
+  auto applied = registry_->Apply(request->spec(), request->dry_run());
+  if (!applied.ok()) return ToGrpc(applied.status());
+  *response = *std::move(applied);
   return grpc::Status::OK;
 }
 
@@ -56,7 +56,8 @@ grpc::Status BellwetherService::Ingest(
   auto worker = registry_->Find(open.pool());
   if (!worker.ok()) return ToGrpc(worker.status());
   std::vector<std::string> columns(open.columns().begin(), open.columns().end());
-  auto column_map = ColumnMap::Create((*worker)->signal_names(), columns);
+  const auto generation = (*worker)->current();
+  auto column_map = ColumnMap::Create(generation->signal_names, columns);
   if (!column_map.ok()) {
     return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
                         absl::StrCat("open.", column_map.status().message()));
@@ -67,7 +68,8 @@ grpc::Status BellwetherService::Ingest(
       return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
                           "batch: every message after `open` must carry a frame batch");
     }
-    PoolWorker::BatchResult r = (*worker)->ApplyBatch(open.stream(), *column_map, request.batch());
+    PoolWorker::BatchResult r =
+        (*worker)->ApplyBatch(open.stream(), *column_map, generation->id, request.batch());
     applied_total += r.frames_applied;
     if (!r.status.ok()) {
       return grpc::Status(static_cast<grpc::StatusCode>(r.status.code()),

@@ -10,16 +10,17 @@
 #include "absl/status/statusor.h"
 #include "absl/synchronization/mutex.h"
 #include "bellwether/v1/pool.pb.h"
+#include "bellwether/v1/service.pb.h"
 #include "server/pool_worker.h"
 
 namespace bellwether::server {
 
 class PoolRegistry {
  public:
-  // Creates the pool. Returns true if created, false if an identical spec was already
-  // applied. INVALID_ARGUMENT for a bad spec (naming the field), ALREADY_EXISTS for a
-  // different spec under the same name. Thread-safe.
-  absl::StatusOr<bool> Apply(const v1::PoolSpec& spec);
+  // Creates the pool, or updates it (unchanged questions keep their learned state), and
+  // reports what changed; with `dry_run` only validates and reports. INVALID_ARGUMENT
+  // for a bad spec (naming the field). Thread-safe.
+  absl::StatusOr<v1::ApplyPoolResponse> Apply(const v1::PoolSpec& spec, bool dry_run);
 
   // The pool's worker, or NOT_FOUND. The worker lives as long as the registry.
   absl::StatusOr<PoolWorker*> Find(const std::string& name) const;

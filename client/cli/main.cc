@@ -42,7 +42,9 @@ constexpr char kUsage[] =
     "Learns forward-looking predictions about every asset you stream, and serves them.\n"
     "\n"
     "commands:\n"
-    "  apply FILE.json                      create a pool from a JSON spec\n"
+    "  apply FILE.json [--dry-run]          create or update a pool from a JSON spec\n"
+    "                                       (unchanged questions keep what they learned;\n"
+    "                                       --dry-run shows what would change)\n"
     "  stream --pool P --stream S FILE.csv  send a CSV file's rows as frames of one stream\n"
     "  predict --pool P --stream S          print a stream's current answers\n"
     "  replay --spec F.json --csv F.csv --out PRED.csv\n"
@@ -84,7 +86,7 @@ bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
       if (eq != std::string::npos) {
         value = name.substr(eq + 1);
         name = name.substr(0, eq);
-      } else if (name == "help" || name == "summary") {
+      } else if (name == "help" || name == "summary" || name == "dry-run") {
         value = "1";
       } else if (i + 1 < argc) {
         value = argv[++i];
@@ -135,13 +137,36 @@ bool OnlyFlags(const Args& args, std::initializer_list<const char*> allowed, std
 
 int Apply(const Args& args) {
   if (args.positional.size() != 1) return UsageError("apply: expected one FILE.json");
+  const bool dry_run = args.flags.count("dry-run") > 0;
   auto spec = ReadPoolSpecFile(args.positional[0]);
   if (!spec.ok()) return UsageError(std::string(spec.status().message()));
   auto client = Client::Connect(args.server);
-  auto created = client->ApplyPool(*spec);
-  if (!created.ok()) return ServerError(created.status());
-  std::cout << "pool " << spec->name() << (*created ? " created" : " unchanged (same spec)")
-            << ": " << spec->questions_size() << " questions\n";
+  auto applied = client->ApplyPool(*spec, dry_run);
+  if (!applied.ok()) return ServerError(applied.status());
+  const char* would = dry_run ? "would be " : "";
+  if (applied->created()) {
+    std::cout << "pool " << spec->name() << " " << would << "created: "
+              << spec->questions_size() << " questions\n";
+  } else if (!applied->updated()) {
+    std::cout << "pool " << spec->name() << " unchanged (same spec)\n";
+  } else {
+    std::cout << "pool " << spec->name() << " " << would << "updated"
+              << (applied->recipe_changed()
+                      ? " (signals, features, actions or tables changed: all questions start "
+                        "fresh)"
+                      : "")
+              << "\n";
+    auto list = [](const char* what, const google::protobuf::RepeatedPtrField<std::string>& names) {
+      if (names.empty()) return;
+      std::cout << "  " << what << ":";
+      for (const std::string& n : names) std::cout << " " << n;
+      std::cout << "\n";
+    };
+    list("added", applied->added());
+    list("changed (start fresh)", applied->changed());
+    list("retired", applied->retired());
+    list("unchanged (keep what they learned)", applied->unchanged());
+  }
   return kExitOk;
 }
 
@@ -295,7 +320,7 @@ int Demo(const Args& args) {
   auto client = Client::Connect(args.server);
   if (auto s = client->WaitUntilReachable(absl::Seconds(10)); !s.ok()) return ServerError(s);
   const v1::PoolSpec spec = CampusSim::PoolSpec();
-  if (auto created = client->ApplyPool(spec); !created.ok()) return ServerError(created.status());
+  if (auto applied = client->ApplyPool(spec); !applied.ok()) return ServerError(applied.status());
   CampusSim sim;
   std::vector<std::unique_ptr<IngestSession>> sessions;
   std::vector<std::string> columns;
@@ -364,7 +389,7 @@ int Main(int argc, char** argv) {
   }
   std::string bad;
   if (args.command == "apply") {
-    if (!OnlyFlags(args, {}, &bad)) return UsageError("apply: unknown flag --" + bad);
+    if (!OnlyFlags(args, {"dry-run"}, &bad)) return UsageError("apply: unknown flag --" + bad);
     return Apply(args);
   }
   if (args.command == "stream") {

@@ -89,7 +89,7 @@ class DaemonTest : public ::testing::Test {
     spec_ = *spec;
     auto created = client_->ApplyPool(spec_);
     ASSERT_TRUE(created.ok()) << created.status();
-    EXPECT_TRUE(*created);
+    EXPECT_TRUE(created->created());
   }
 
   Daemon daemon_;  // declared first: destroyed (stopped) after the client
@@ -165,14 +165,19 @@ TEST_F(DaemonTest, BadInputIsInvalidArgumentNamingTheFieldAndChangesNothing) {
   auto applied = client_->ApplyPool(bad);
   EXPECT_EQ(applied.status().code(), absl::StatusCode::kInvalidArgument);
   EXPECT_THAT(applied.status().message(), HasSubstr("questions[0] (demand_next_12h).gamma"));
-  // The same name with a different spec.
+  // The same name with a different spec, as a dry run: reported, nothing changes.
   v1::PoolSpec changed = spec_;
   changed.mutable_questions(0)->set_lambda(0.5);
-  EXPECT_EQ(client_->ApplyPool(changed).status().code(), absl::StatusCode::kAlreadyExists);
-  // Identical spec again: fine, not created.
+  auto dry = client_->ApplyPool(changed, /*dry_run=*/true);
+  ASSERT_TRUE(dry.ok()) << dry.status();
+  EXPECT_TRUE(dry->updated());
+  ASSERT_EQ(dry->changed_size(), 1);
+  EXPECT_EQ(dry->changed(0), "demand_next_12h");
+  // Identical spec again: fine, not created, not updated.
   auto again = client_->ApplyPool(spec_);
   ASSERT_TRUE(again.ok());
-  EXPECT_FALSE(*again);
+  EXPECT_FALSE(again->created());
+  EXPECT_FALSE(again->updated());
 
   auto frame = [](uint64_t seq, double v) {
     v1::FrameBatch b;
@@ -225,6 +230,53 @@ TEST_F(DaemonTest, BadInputIsInvalidArgumentNamingTheFieldAndChangesNothing) {
   ASSERT_TRUE(after.ok());
   EXPECT_EQ(after->SerializeAsString(), before->SerializeAsString())
       << "rejected input must not change learned state";
+}
+
+TEST_F(DaemonTest, UpdatingAPoolKeepsUnchangedQuestionsAndRebindsIngest) {
+  auto reader = CsvFrameReader::Open(DemandPath());
+  ASSERT_TRUE(reader.ok());
+  auto session = client_->OpenIngest("grid", "england", (*reader)->signal_columns());
+  ASSERT_TRUE(session.ok());
+  v1::FrameBatch batch;
+  for (int i = 0; i < 500; ++i) {
+    v1::Frame f;
+    ASSERT_TRUE(*(*reader)->Next(&f));
+    *batch.add_frames() = f;
+  }
+  ASSERT_TRUE((*session)->Send(batch).ok());
+  auto before = client_->Predict("grid", "england");
+  ASSERT_TRUE(before.ok());
+  // Add a question; the existing one keeps what it learned.
+  v1::PoolSpec grown = spec_;
+  v1::QuestionSpec* added = grown.add_questions();
+  *added = spec_.questions(0);
+  added->set_name("demand_next_hour");
+  added->set_gamma(0.5);
+  auto applied = client_->ApplyPool(grown);
+  ASSERT_TRUE(applied.ok()) << applied.status();
+  EXPECT_TRUE(applied->updated());
+  ASSERT_EQ(applied->added_size(), 1);
+  ASSERT_EQ(applied->unchanged_size(), 1);
+  auto after = client_->Predict("grid", "england");
+  ASSERT_TRUE(after.ok());
+  ASSERT_EQ(after->predictions_size(), 2);
+  EXPECT_EQ(after->predictions(0).value(), before->predictions(0).value());
+  EXPECT_EQ(after->predictions(0).verified().count(), before->predictions(0).verified().count());
+  EXPECT_EQ(after->as_of_seq(), 500u);
+  // The open ingest stream was bound to the old spec: its next batch is refused.
+  batch.Clear();
+  v1::Frame f;
+  ASSERT_TRUE(*(*reader)->Next(&f));
+  *batch.add_frames() = f;
+  auto refused = (*session)->Send(batch);
+  EXPECT_EQ(refused.status().code(), absl::StatusCode::kFailedPrecondition);
+  EXPECT_THAT(refused.status().message(), HasSubstr("reopen"));
+  // A new stream continues from seq 501.
+  auto reopened = client_->OpenIngest("grid", "england", (*reader)->signal_columns());
+  ASSERT_TRUE(reopened.ok());
+  auto ack = (*reopened)->Send(batch);
+  ASSERT_TRUE(ack.ok()) << ack.status();
+  EXPECT_EQ(ack->applied_seq(), 501u);
 }
 
 TEST(DaemonCli, ApplyStreamPredictThroughTheCli) {
