@@ -66,6 +66,7 @@ Pool::Pool(CompiledPoolSpec spec)
   pi_now_.resize(num_actions_);
   pi_next_.resize(num_actions_);
   q_values_.resize(num_actions_);
+  behavior_cell_.Reserve(1);
 }
 
 absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1::PoolSpec& spec) {
@@ -262,9 +263,10 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
       const double c = TransitionCumulant(q.cumulant, frame, now, s);
       double fit = 0, norm = 0;
       bool complete = !std::isnan(c);
+      // phi_{t+1}: the table's components already read it as their cumulants.
+      const double* phi_next = &trans_cumulant_[table.first];
       for (size_t k = 0; k < table.count && complete; ++k) {
-        const double phi = TransitionCumulant(spec_.questions[table.first + k].cumulant, frame,
-                                              now, s);
+        const double phi = phi_next[k];
         complete &= !std::isnan(phi);
         fit += w[k] * phi;
         norm += phi * phi;
@@ -273,7 +275,7 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
       if (complete && norm > 0) {
         const double step = q.regression_step_size * (c - fit) / norm;
         for (size_t k = 0; k < table.count; ++k) {
-          w[k] += step * TransitionCumulant(spec_.questions[table.first + k].cumulant, frame, now, s);
+          w[k] += step * phi_next[k];
         }
         ++updates;
       }
@@ -343,7 +345,8 @@ void Pool::PolicyDistribution(const CompiledPolicy& policy, StreamState& s,
 
 double Pool::EstimateBehavior(StreamState& s, int action) {
   // Laplace-smoothed counts of actions in the frame's coarse cell, before this action.
-  SparseFeatures cell;
+  SparseFeatures& cell = behavior_cell_;
+  cell.Clear();
   double inputs[8];
   bool complete = true;
   for (size_t d = 0; d < spec_.behavior_cell_inputs.size(); ++d) {
@@ -352,7 +355,6 @@ double Pool::EstimateBehavior(StreamState& s, int action) {
   }
   size_t c = spec_.behavior_cells->num_tiles();  // the "unknown" cell
   if (complete) {
-    cell.Reserve(1);
     spec_.behavior_cells->Encode(absl::MakeConstSpan(inputs, spec_.behavior_cell_inputs.size()), 0,
                                  0, &cell);
     c = cell.index[0];

@@ -137,6 +137,7 @@ class Pool {
   std::vector<double> block_answers_;  // per question of the current block
   std::vector<double> trans_cumulant_, trans_continuation_, trans_pi_, trans_rho_;
   std::vector<double> pi_now_, pi_next_, q_values_;
+  SparseFeatures behavior_cell_;  // the coarse cell of the behavior estimate
 };
 
 }  // namespace bellwether
