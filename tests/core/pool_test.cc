@@ -10,36 +10,15 @@
 #include "core/io/spec_json.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
+#include "tests/chain_spec.h"
 
 namespace bellwether {
 namespace {
 
 using ::testing::HasSubstr;
 
-// A single-signal pool with one-hot features over integer states 0..(n-1).
 v1::PoolSpec OneHotSpec(int states, double gamma, double lambda, double step) {
-  v1::PoolSpec spec;
-  spec.set_name("chain");
-  v1::SignalSpec* s = spec.add_signals();
-  s->set_name("state");
-  s->set_min(0);
-  s->set_max(states);
-  v1::SignalSpec* r = spec.add_signals();
-  r->set_name("reward");
-  r->set_min(-1);
-  r->set_max(1);
-  v1::TileCoding* t = spec.add_features()->mutable_tiles();
-  t->add_signals("state");
-  t->set_tilings(1);
-  t->set_tiles_per_dim(states);
-  v1::QuestionSpec* q = spec.add_questions();
-  q->set_name("value");
-  q->mutable_cumulant()->set_signal("reward");
-  q->set_gamma(gamma);
-  q->set_lambda(lambda);
-  q->set_step_size(step);
-  q->set_step_rule(v1::FIXED);
-  return spec;
+  return testing::OneHotChainSpec(states, gamma, lambda, step);
 }
 
 absl::Status ApplyValues(Pool& pool, const std::string& stream, uint64_t seq,

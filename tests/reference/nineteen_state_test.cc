@@ -25,6 +25,7 @@
 #include "core/learners/sparse_trace.h"
 #include "core/pool.h"
 #include "gtest/gtest.h"
+#include "tests/chain_spec.h"
 
 namespace bellwether {
 namespace {
@@ -54,28 +55,8 @@ std::vector<int> WalkEpisode(std::mt19937& rng) {
 }
 
 v1::PoolSpec WalkSpec(v1::Learner learner, double lambda, double step) {
-  v1::PoolSpec spec;
+  v1::PoolSpec spec = testing::OneHotChainSpec(kTiles, 1.0, lambda, step, learner);
   spec.set_name("nineteen");
-  v1::SignalSpec* s = spec.add_signals();
-  s->set_name("state");
-  s->set_min(0);
-  s->set_max(kTiles);
-  v1::SignalSpec* r = spec.add_signals();
-  r->set_name("reward");
-  r->set_min(-1);
-  r->set_max(1);
-  v1::TileCoding* t = spec.add_features()->mutable_tiles();
-  t->add_signals("state");
-  t->set_tilings(1);
-  t->set_tiles_per_dim(kTiles);
-  v1::QuestionSpec* q = spec.add_questions();
-  q->set_name("value");
-  q->mutable_cumulant()->set_signal("reward");
-  q->set_gamma(1.0);
-  q->set_lambda(lambda);
-  q->set_learner(learner);
-  q->set_step_rule(v1::FIXED);
-  q->set_step_size(step);
   return spec;
 }
 
