@@ -656,6 +656,17 @@ class Compiler {
     }
     const bool action_valued =
         cq.learner == LearnerKind::kTreeBackup || cq.learner == LearnerKind::kQLambda;
+    if (q.centered()) {
+      if (action_valued) {
+        return Error(field + ".centered", "centering needs state values (not a control or "
+                                          "TREE_BACKUP question)");
+      }
+      if (!cq.terminate_when.empty() || cq.gamma >= 1.0) {
+        return Error(field + ".centered", "centering needs a constant continuation gamma < 1 "
+                                          "and no terminate_when");
+      }
+      cq.centered = true;
+    }
     if ((off_policy || action_valued) && out_.actions.empty()) {
       return Error(field, "needs actions: declare the pool's actions");
     }
@@ -672,6 +683,7 @@ class Compiler {
       case v1::FIXED: cq.step_rule = StepRuleKind::kFixed; break;
       case v1::AUTOSTEP: cq.step_rule = StepRuleKind::kAutostep; break;
       case v1::TIDBD: cq.step_rule = StepRuleKind::kTidbd; break;
+      case v1::SETTLING: cq.step_rule = StepRuleKind::kSettling; break;
       default:
         return Error(field + ".step_rule", absl::StrCat("unknown step rule ", q.step_rule()));
     }
@@ -776,7 +788,7 @@ class Compiler {
           if (!q.control && k.level == level && k.policy == q.policy && k.gamma == q.gamma &&
               k.terminate_when == q.terminate_when && k.lambda == q.lambda &&
               k.learner == q.learner && k.step_rule == q.step_rule &&
-              k.shared_step_size == shared) {
+              k.shared_step_size == shared && k.centered == q.centered) {
             break;
           }
         }
@@ -789,6 +801,7 @@ class Compiler {
           k.learner = q.learner;
           k.step_rule = q.step_rule;
           k.shared_step_size = shared;
+          k.centered = q.centered;
           k.level = level;
           k.action_valued =
               q.learner == LearnerKind::kTreeBackup || q.learner == LearnerKind::kQLambda;

@@ -52,7 +52,7 @@ struct CompiledPolicy {
 };
 
 enum class LearnerKind { kTd, kTrueOnlineTd, kTdc, kEmphaticTd, kTreeBackup, kQLambda };
-enum class StepRuleKind { kFixed, kAutostep, kTidbd };
+enum class StepRuleKind { kFixed, kAutostep, kTidbd, kSettling };
 
 struct CompiledQuestion {
   std::string name;
@@ -69,6 +69,8 @@ struct CompiledQuestion {
   double meta_step_size = kDefaultMetaStepSize;
   double rho_clip = 0;  // 0: none
   bool control = false;
+  // Learns the cumulant's deviation from its running mean (see QuestionSpec.uncentered).
+  bool centered = false;
   // Internal: one component of a successor table (not reported as a question).
   bool internal = false;
   // Answered from successor table `successor` (index into CompiledPoolSpec::tables), or -1.
@@ -95,6 +97,7 @@ struct BlockSpec {
   double shared_step_size = 0;  // TRUE_ONLINE_TD: the block's one step size
   int level = 0;
   bool action_valued = false;   // TREE_BACKUP and control questions learn q(s, a)
+  bool centered = false;        // cumulants centered on their running mean
   double progress_decay = 0.999;  // the pool's progress averaging decay
   bool rupee = true;              // track RUPEE (costs two extra weight-sized arrays)
   std::vector<size_t> questions;  // indices into CompiledPoolSpec::questions

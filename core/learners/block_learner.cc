@@ -19,8 +19,12 @@ constexpr double kDivergenceFactor = 10.0;
 constexpr double kMaxHorizon = 1e4;
 
 bool UsesPerWeightSteps(StepRuleKind r) {
-  return r == StepRuleKind::kAutostep || r == StepRuleKind::kTidbd;
+  return r == StepRuleKind::kAutostep || r == StepRuleKind::kTidbd ||
+         r == StepRuleKind::kSettling;
 }
+
+// Centering's averaging window, in horizons 1 / (1 - gamma).
+constexpr double kCenteringHorizons = 10.0;
 
 double NormSq(const SparseFeatures& x) {
   double s = 0;
@@ -62,6 +66,8 @@ BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuesti
   }
   rupee_dot_.assign(cols_, 0.0);
   counters_.resize(cols_);
+  cumulant_mean_.assign(cols_, 0.0);
+  cumulant_count_.assign(cols_, 0);
   initial_alpha_.resize(cols_);
   for (uint32_t c = 0; c < cols_; ++c) {
     const CompiledQuestion& q = questions[spec.questions[c]];
@@ -71,12 +77,12 @@ BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuesti
     alpha_.resize(n);
     for (size_t r = 0; r < rows_; ++r) {
       for (uint32_t c = 0; c < cols_; ++c) {
-        alpha_[r * cols_ + c] = spec.step_rule == StepRuleKind::kTidbd
-                                    ? std::log(initial_alpha_[c])
-                                    : initial_alpha_[c];
+        alpha_[r * cols_ + c] = spec.step_rule == StepRuleKind::kTidbd ? std::log(initial_alpha_[c])
+                                : spec.step_rule == StepRuleKind::kSettling ? 0.0f
+                                                                            : initial_alpha_[c];
       }
     }
-    ss_h_.assign(n, 0.0f);
+    if (spec.step_rule != StepRuleKind::kSettling) ss_h_.assign(n, 0.0f);
     if (spec.step_rule == StepRuleKind::kAutostep) ss_v_.assign(n, 0.0f);
   }
 }
@@ -95,6 +101,8 @@ void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, ui
   copy(other.ss_h_, ss_h_);
   copy(other.ss_v_, ss_v_);
   counters_[to_col] = other.counters_[from_col];
+  cumulant_mean_[to_col] = other.cumulant_mean_[from_col];
+  cumulant_count_[to_col] = other.cumulant_count_[from_col];
   if (!rupee_u_.empty() && !other.rupee_u_.empty()) {
     // Bring the other block's lazily scaled u onto this block's scale.
     const float ratio = static_cast<float>(other.rupee_scale_ / rupee_scale_);
@@ -111,7 +119,11 @@ void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, ui
 float BlockParams::step_size(uint32_t r, uint32_t q) const {
   if (alpha_.empty()) return static_cast<float>(static_cast<double>(initial_alpha_[q]) * counters_[q].step_scale);
   const float a = alpha_[static_cast<size_t>(r) * cols_ + q];
-  return ss_v_.empty() ? std::exp(a) : a;  // TIDBD stores log steps
+  if (!ss_v_.empty()) return a;             // Autostep
+  if (!ss_h_.empty()) return std::exp(a);  // TIDBD stores log steps
+  // SETTLING stores o_i; an unseen feature's first step is 1.
+  const float alpha = static_cast<float>(static_cast<double>(initial_alpha_[q]) * counters_[q].step_scale);
+  return a > 0.0f ? alpha / a : 1.0f;
 }
 
 void BlockParams::StepSizeSummary(uint32_t q, absl::Span<const uint32_t> rows, double norm_sq,
@@ -180,7 +192,10 @@ void BlockLearner::Answer(const BlockSpec& spec, const SparseFeatures& x,
   const uint32_t nq = params.cols();
   if (!spec.action_valued) {
     PredictRows(params, x, -1, v_.data());
-    for (uint32_t q = 0; q < nq; ++q) answers[q] = v_[q];
+    const double offset_scale = spec.centered ? 1.0 / (1.0 - spec.gamma) : 0.0;
+    for (uint32_t q = 0; q < nq; ++q) {
+      answers[q] = static_cast<double>(v_[q]) + params.cumulant_mean_[q] * offset_scale;
+    }
     return;
   }
   const auto qv = absl::MakeSpan(q_buf_.data(), num_actions_);
@@ -262,8 +277,16 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
       continue;
     }
     counters.max_abs_cumulant = std::max(counters.max_abs_cumulant, std::fabs(c));
+    double centered_c = c;
+    if (spec.centered) {
+      const uint64_t n = ++p.cumulant_count_[q];
+      const double beta = std::max(1.0 / static_cast<double>(n),
+                                   (1.0 - spec.gamma) / kCenteringHorizons);
+      p.cumulant_mean_[q] += beta * (c - p.cumulant_mean_[q]);
+      centered_c = c - p.cumulant_mean_[q];
+    }
     const double delta =
-        c + gamma_next * static_cast<double>(v_next_[q]) - static_cast<double>(v_[q]);
+        centered_c + gamma_next * static_cast<double>(v_next_[q]) - static_cast<double>(v_[q]);
     delta_[q] = static_cast<float>(delta);
     dscratch_[q] = 1.0;
     ++counters.updates;
@@ -499,6 +522,40 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
         h[q] = h[q] * std::max(0.0f, 1.0f - alpha[q] * xr * er) + step_w;
       }
     }
+  } else if (spec.step_rule == StepRuleKind::kSettling) {
+    const SparseFeatures& x = *step.x;
+    const uint32_t stride = spec.action_valued ? num_actions_ : 1;
+    const uint32_t off = spec.action_valued ? static_cast<uint32_t>(step.action) : 0;
+    float* alpha = scratch_.data() + 2 * nq;
+    for (uint32_t q = 0; q < nq; ++q) {
+      alpha[q] = static_cast<float>(static_cast<double>(p.initial_alpha_[q]) *
+                                    p.counters_[q].step_scale);
+    }
+    // Pass 1: the active features' averaging traces o_i and the total step M.
+    for (size_t k = 0; k < x.size(); ++k) {
+      const size_t base = static_cast<size_t>(x.index[k] * stride + off) * nq;
+      const float x_sq = x.value[k] * x.value[k];
+      float* __restrict o = &p.alpha_[base];
+      for (uint32_t q = 0; q < nq; ++q) {
+        if (mask[q] == 0.0) continue;
+        o[q] += alpha[q] * (1.0f - o[q]);
+        msum[q] += alpha[q] / o[q] * x_sq;
+      }
+    }
+    for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
+    // Pass 2: w_i += (alpha / o_i / M) delta e_i over the trace.
+    for (uint32_t r : rows) {
+      const float er = e.value(r);
+      const size_t base = static_cast<size_t>(r) * nq;
+      const float* o = &p.alpha_[base];
+      float* __restrict w = &p.w_[base];
+      for (uint32_t q = 0; q < nq; ++q) {
+        if (mask[q] == 0.0 || o[q] <= 0.0f) continue;
+        const float step_w = alpha[q] / o[q] * msum[q] * delta[q] * er;
+        w[q] += step_w;
+        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
+      }
+    }
   } else {  // TIDBD
     for (uint32_t r : rows) {
       const float er = e.value(r), xr = x_dense_[r];
@@ -615,7 +672,9 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
       }
       if (!p.alpha_.empty()) {
         const float a = static_cast<float>(static_cast<double>(p.initial_alpha_[q]) * c.step_scale);
-        p.alpha_[i] = spec.step_rule == StepRuleKind::kTidbd ? std::log(a) : a;
+        p.alpha_[i] = spec.step_rule == StepRuleKind::kTidbd      ? std::log(a)
+                      : spec.step_rule == StepRuleKind::kSettling ? 0.0f
+                                                                  : a;
       }
     }
   }

@@ -33,6 +33,12 @@
 // as in AutoTIDBD (Kearney et al. 2019). Only the trace's rows are touched, so a weight
 // whose feature is not in the trace keeps its step size (the supervised algorithm divides
 // every alpha_i by M; for dense inputs the two agree).
+// SETTLING (Sutton & Barto 2nd ed., Exercise 2.7, per weight): o_i += alpha (1 - o_i)
+// when feature i is active; alpha_i = alpha / o_i; M = max(sum_{i in x} alpha_i x_i^2, 1);
+// w_i += (alpha_i / M) delta e_i.
+// Centering (Naik, Wan, Tomar & Sutton 2024): a centered question learns from
+// c - r_bar, where r_bar += max(1 / n, (1 - gamma) / 10) (c - r_bar), and answers
+// v(s) + r_bar / (1 - gamma).
 // TIDBD (Kearney, Veeriah, Travnik, Pilarski & Sutton 2019, semi-gradient form; from
 // memory of the paper): beta_i += theta delta x_i h_i; alpha_i = exp(beta_i);
 // w_i += alpha_i delta e_i; h_i = h_i (1 - alpha_i x_i e_i)^+ + alpha_i delta e_i.
@@ -91,6 +97,10 @@ class BlockParams {
   // setting weights from outside (a restored checkpoint, a test's initial weights).
   void MarkSound() { good_w_ = w_; }
 
+  // Centering: the running mean of column `q`'s cumulant and how many it has seen.
+  double cumulant_mean(uint32_t q) const { return cumulant_mean_[q]; }
+  uint64_t cumulant_count(uint32_t q) const { return cumulant_count_[q]; }
+
   std::vector<QuestionCounters>& counters() { return counters_; }
   const std::vector<QuestionCounters>& counters() const { return counters_; }
 
@@ -99,7 +109,8 @@ class BlockParams {
   uint32_t rows_, cols_;
   std::vector<float> w_;      // rows x cols, feature-major
   std::vector<float> aux_;    // TDC: secondary weights h
-  std::vector<float> alpha_;  // AUTOSTEP: alpha_i; TIDBD: beta_i = log alpha_i
+  // AUTOSTEP: alpha_i; TIDBD: beta_i = log alpha_i; SETTLING: o_i.
+  std::vector<float> alpha_;
   std::vector<float> ss_h_;   // AUTOSTEP/TIDBD: h_i
   std::vector<float> ss_v_;   // AUTOSTEP: v_i
   std::vector<float> good_w_;  // divergence guard: the last weights known to be sound
@@ -112,6 +123,8 @@ class BlockParams {
   bool implausible_since_snapshot_ = false;
   std::vector<QuestionCounters> counters_;
   std::vector<float> initial_alpha_;  // per column
+  std::vector<double> cumulant_mean_;   // centering, per column
+  std::vector<uint64_t> cumulant_count_;
 };
 
 // Per-stream trace state of one block.
