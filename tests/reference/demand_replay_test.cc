@@ -10,6 +10,7 @@
 // the first two weeks, as an online learner is scored after its warm-up (common practice).
 #include <cmath>
 #include <fstream>
+#include <cstdio>
 #include <string>
 #include <vector>
 
@@ -103,6 +104,33 @@ TEST(DemandReplay, SummaryBaselinesMatchTheNumPyMeasurement) {
   EXPECT_NEAR(nrmse_of("last week"), 0.23, 0.005);
   EXPECT_GT(nrmse_of("bellwether"), 0.0);
   EXPECT_NE(r.out.find("1853"), std::string::npos) << "rows scored: 2688 - 672 - 163 held";
+}
+
+// The accuracy benchmark's recipe (tests/bench/demand_recipe.json: SETTLING steps at
+// their default size, reward centering), one pass, scored as above, must stay under the
+// issue's target NRMSE 0.20 and beat last week's realized return (the NumPy figure 0.23).
+// A regression guard for the engine, not a claim about unseen series: the recipe's
+// layout and lambda were chosen after looking at this file (see tests/bench/accuracy.sh).
+TEST(DemandReplay, BenchRecipeMeetsTheAccuracyTarget) {
+  const std::string data = std::string(BW_SHARED_DATA_DIR) + "/halfhourly-demand-2000.csv";
+  const std::string out = testing::MakeTempDir("bench_recipe") + "/pred.csv";
+  const auto r = testing::RunCommand(
+      {BW_CLI_PATH, "replay", "--spec", std::string(BW_TEST_DATA_DIR) + "/../bench/demand_recipe.json",
+       "--csv", data, "--out", out, "--summary", "--score-from-row", "673"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  auto nrmse_of = [&](const std::string& who) {
+    const size_t at = r.out.find("discounted_demand        " + who);
+    EXPECT_NE(at, std::string::npos) << r.out;
+    if (at == std::string::npos) return -1.0;
+    const std::string line = r.out.substr(at, r.out.find('\n', at) - at);
+    return std::stod(line.substr(line.find_last_of(' ') + 1));
+  };
+  const double ours = nrmse_of("bellwether");
+  std::printf("bench recipe: NRMSE %.3f (target 0.20; last week %.3f)\n", ours,
+              nrmse_of("last week"));
+  EXPECT_GT(ours, 0.0);
+  EXPECT_LE(ours, 0.20);
+  EXPECT_LT(ours, nrmse_of("last week"));
 }
 
 }  // namespace
