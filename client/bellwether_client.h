@@ -32,8 +32,10 @@ class IngestSession {
   IngestSession(const IngestSession&) = delete;
   IngestSession& operator=(const IngestSession&) = delete;
 
-  // Sends one batch and waits for its acknowledgement. On a rejected frame the call ends
-  // with the server's error (INVALID_ARGUMENT naming the frame's seq and field).
+  // Sends one batch and waits for its acknowledgement. A bad frame does not end the
+  // call: it is listed in the response's `rejected` (seq and reason naming the field) and
+  // the batch's other frames are applied. Errors of the whole stream (pool changed or
+  // deleted, queue full, daemon draining) end the call with the server's status.
   absl::StatusOr<v1::IngestResponse> Send(const v1::FrameBatch& batch);
   // Closes the stream and returns the server's final status.
   absl::Status Finish();

@@ -590,6 +590,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     p->set_question(q.name);
     p->set_value(s.answers[qi]);
     p->set_unit(q.unit);
+    p->set_as_of_seq(s.last_seq);
     if ((q.control || !q.gpi_tables.empty()) && s.greedy_actions[qi] >= 0) {
       p->set_greedy_action(spec_.actions[static_cast<size_t>(s.greedy_actions[qi])]);
     }
@@ -604,6 +605,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     ve->set_unverifiable(st.unverifiable);
     ve->set_effective_sample_size(st.effective_sample_size);
     ve->set_memory_bytes(s.verifiers[qi].memory_bytes());
+    p->set_error_band(st.count > 0 ? st.rmse : 0.0);
     switch (s.verifiers[qi].mode()) {
       case VerificationMode::kOnPolicy: ve->set_mode("on-policy"); break;
       case VerificationMode::kOnTargetStretches: ve->set_mode("on-target stretches"); break;
@@ -632,6 +634,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
       const QuestionCounters& tc = ParamsFor(s, first.block).counters()[first.index_in_block];
       pr->set_label(ProgressLabelName(tc.progress.Label(spec_.progress_decay)));
       pr->set_divergence_resets(tc.divergence_resets);
+      p->set_label(pr->label());
       continue;
     }
     const BlockSpec& block = spec_.blocks[q.block];
@@ -649,6 +652,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     pr->set_weight_change(c.progress.weight_change);
     pr->set_effective_sample_fraction(c.progress.effective_sample_fraction());
     pr->set_label(ProgressLabelName(c.progress.Label(spec_.progress_decay)));
+    p->set_label(pr->label());
     pr->set_behavior_estimated(spec_.estimate_behavior &&
                                (q.policy.kind != PolicyKind::kBehavior) && !block.action_valued);
     rows.clear();

@@ -9,6 +9,7 @@ packages=(
   libeigen3-dev libabsl-dev prometheus-cpp-dev
   libgtest-dev libgmock-dev libbenchmark-dev
   tzdata python3-numpy
+  libcivetweb-dev chromium prometheus python3-grpcio python3-grpc-tools
 )
 
 missing=()

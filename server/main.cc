@@ -2,14 +2,16 @@
 // the answers over gRPC. Predictions are advisory; Bellwether is not a safety system.
 #include <signal.h>
 
+#include <algorithm>
+#include <cstdint>
 #include <cstdio>
+#include <utility>
 #include <filesystem>
 #include <iostream>
 #include <memory>
 #include <string>
 #include <thread>
 #include <vector>
-#include <algorithm>
 
 #include "absl/flags/flag.h"
 #include "absl/flags/parse.h"
@@ -21,6 +23,9 @@
 #include "grpcpp/grpcpp.h"
 #include "server/bellwether_service.h"
 #include "server/pool_registry.h"
+#include "server/status_http.h"
+#include "server/http_server.h"
+#include "server/daemon_metrics.h"
 
 ABSL_FLAG(std::string, listen, "127.0.0.1:50151",
           "gRPC address HOST:PORT; port 0 picks a free port (the bound address is printed as "
@@ -30,6 +35,23 @@ ABSL_FLAG(std::string, state_dir, "",
           "this version; the directory is reserved for the write-ahead log and checkpoints.");
 ABSL_FLAG(double, shutdown_grace_seconds, 5.0,
           "On SIGTERM/SIGINT, seconds in-flight calls get to finish before they are cancelled");
+ABSL_FLAG(std::string, http, "",
+          "HTTP address HOST:PORT for /metrics (Prometheus) and the status page at /; port 0 "
+          "picks a free port (printed as 'http on HOST:PORT'); empty = no HTTP");
+ABSL_FLAG(int32_t, queue_batches, 64,
+          "Frame batches each pool's writer queue holds; a full queue answers ingest with "
+          "RESOURCE_EXHAUSTED");
+ABSL_FLAG(int32_t, history_streams, 16,
+          "Streams per pool that keep a history (recent verified predictions and progress "
+          "samples) for the status page and the Progress RPC: the first ones to send frames");
+ABSL_FLAG(int32_t, history_points, 360, "Points per question in each history ring");
+ABSL_FLAG(int32_t, metrics_max_questions, 200,
+          "Per-question metric series for at most this many (pool, question) pairs; beyond "
+          "it, pool-level aggregates only (bounds label cardinality)");
+
+namespace {
+constexpr char kVersion[] = "0.5.0";
+}  // namespace
 
 namespace {
 
@@ -84,8 +106,28 @@ int Main(int argc, char** argv) {
   }
   const std::string host = listen.substr(0, colon);
 
-  bellwether::server::PoolRegistry registry;
-  bellwether::server::BellwetherService service(&registry);
+  for (const auto& [name, value] :
+       {std::pair{"--queue-batches", absl::GetFlag(FLAGS_queue_batches)},
+        std::pair{"--history-streams", absl::GetFlag(FLAGS_history_streams)},
+        std::pair{"--history-points", absl::GetFlag(FLAGS_history_points)},
+        std::pair{"--metrics-max-questions", absl::GetFlag(FLAGS_metrics_max_questions)}}) {
+    if (value < 0 || (value == 0 && std::string(name) == "--queue-batches")) {
+      std::cerr << "bellwetherd: " << name << " " << value << ": must be "
+                << (std::string(name) == "--queue-batches" ? "positive" : "non-negative")
+                << "\n";
+      return 1;
+    }
+  }
+  namespace bws = bellwether::server;
+  bws::DaemonMetrics metrics(kVersion,
+                             static_cast<size_t>(absl::GetFlag(FLAGS_metrics_max_questions)));
+  bws::PoolWorker::Options worker_options;
+  worker_options.queue_capacity = static_cast<size_t>(absl::GetFlag(FLAGS_queue_batches));
+  worker_options.history_streams = static_cast<size_t>(absl::GetFlag(FLAGS_history_streams));
+  worker_options.history_points = static_cast<size_t>(absl::GetFlag(FLAGS_history_points));
+  bws::PoolRegistry registry(&metrics, worker_options);
+  metrics.SetPoolSource(&registry);
+  bws::BellwetherService service(&registry, &metrics, bws::BellwetherService::Options());
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
   grpc::ServerBuilder builder;
@@ -97,21 +139,42 @@ int Main(int argc, char** argv) {
     std::cerr << "bellwetherd: cannot listen on " << listen << "\n";
     return 1;
   }
-  server->GetHealthCheckService()->SetServingStatus(true);
   std::cout << "listening on " << host << ":" << port << std::endl;
+  std::unique_ptr<bws::HttpServer> http;
+  if (const std::string http_addr = absl::GetFlag(FLAGS_http); !http_addr.empty()) {
+    auto started = bws::HttpServer::Start(
+        http_addr, bws::StatusRoutes(&registry, &service, &metrics, kVersion));
+    if (!started.ok()) {
+      std::cerr << "bellwetherd: " << started.status().message() << "\n";
+      server->Shutdown();
+      return 1;
+    }
+    http = *std::move(started);
+    std::cout << "http on " << http_addr.substr(0, http_addr.rfind(':')) << ":" << http->port()
+              << std::endl;
+  }
+  // Loaded and ready (pools are in memory; nothing to load yet).
+  server->GetHealthCheckService()->SetServingStatus(true);
   std::cerr << "bellwetherd: serving; predictions are advisory, not a safety system\n";
 
   std::thread waiter([&] {
     int sig = 0;
     sigwait(&stop_signals, &sig);
     std::cerr << "bellwetherd: signal " << sig << ", shutting down\n";
+    // Drain: health NOT_SERVING, new calls UNAVAILABLE, open ingest calls end once their
+    // queued batches are applied; then stop with the rest of the grace period.
+    const absl::Time deadline =
+        absl::Now() + absl::Seconds(absl::GetFlag(FLAGS_shutdown_grace_seconds));
     server->GetHealthCheckService()->SetServingStatus(false);
-    server->Shutdown(std::chrono::system_clock::now() +
-                     std::chrono::milliseconds(static_cast<int64_t>(
-                         absl::GetFlag(FLAGS_shutdown_grace_seconds) * 1000)));
+    service.StartDraining();
+    if (!service.WaitForStreamsToEnd(deadline)) {
+      std::cerr << "bellwetherd: streams still open at the grace deadline; cancelling them\n";
+    }
+    server->Shutdown(absl::ToChronoTime(deadline));
   });
   server->Wait();
   waiter.join();
+  http.reset();
   std::cerr << "bellwetherd: stopped\n";
   return 0;
 }

@@ -1,5 +1,8 @@
 #include "server/pool_registry.h"
 
+#include <algorithm>
+#include <utility>
+
 #include "absl/strings/str_cat.h"
 #include "core/pool.h"
 #include "core/spec_diff.h"
@@ -8,37 +11,110 @@
 
 namespace bellwether::server {
 
-absl::StatusOr<v1::ApplyPoolResponse> PoolRegistry::Apply(const v1::PoolSpec& spec,
-                                                          bool dry_run) {
+PoolRegistry::PoolRegistry(DaemonMetrics* metrics, PoolWorker::Options options)
+    : metrics_(metrics), options_(options) {}
+
+PoolRegistry::~PoolRegistry() {
+  absl::MutexLock lock(&mu_);
+  for (auto& [name, worker] : pools_) worker->MarkDeleted();
+}
+
+absl::StatusOr<v1::ApplyPoolResponse> PoolRegistry::Apply(const v1::PoolSpec& spec, bool dry_run,
+                                                          bool create_only) {
   // Validate (and compile) before touching anything.
   BW_ASSIGN_OR_RETURN(std::unique_ptr<Pool> pool, Pool::Create(spec));
   v1::ApplyPoolResponse response;
-  absl::MutexLock lock(&mu_);
-  auto it = pools_.find(spec.name());
-  if (it == pools_.end()) {
-    response.set_created(true);
-    for (const v1::QuestionSpec& q : spec.questions()) response.add_added(q.name());
-    if (!dry_run) pools_.emplace(spec.name(), std::make_unique<PoolWorker>(std::move(pool)));
-    return response;
+  std::shared_ptr<PoolWorker> existing;
+  {
+    absl::MutexLock lock(&mu_);
+    auto it = pools_.find(spec.name());
+    if (it == pools_.end()) {
+      response.set_created(true);
+      for (const v1::QuestionSpec& q : spec.questions()) response.add_added(q.name());
+      if (!dry_run) {
+        PoolWorker::Options o = options_;
+        if (metrics_ != nullptr) o.metrics = metrics_->NewPoolMetrics(spec.name());
+        pools_.emplace(spec.name(), std::make_shared<PoolWorker>(std::move(pool), o));
+      }
+      return response;
+    }
+    if (create_only) {
+      return absl::AlreadyExistsError(
+          absl::StrCat("pool '", spec.name(), "' already exists (create_only was set)"));
+    }
+    existing = it->second;
   }
-  const SpecDiff diff = DiffPoolSpecs(it->second->current()->spec, spec);
+  const auto current = existing->current();
+  const SpecDiff diff = DiffPoolSpecs(current->spec, spec);
   for (const std::string& n : diff.added) response.add_added(n);
   for (const std::string& n : diff.changed) response.add_changed(n);
   for (const std::string& n : diff.retired) response.add_retired(n);
   for (const std::string& n : diff.unchanged) response.add_unchanged(n);
   response.set_recipe_changed(diff.recipe_changed);
-  const bool same = google::protobuf::util::MessageDifferencer::Equals(
-      it->second->current()->spec, spec);
+  const bool same = google::protobuf::util::MessageDifferencer::Equals(current->spec, spec);
   response.set_updated(!same);
-  if (!same && !dry_run) BW_RETURN_IF_ERROR(it->second->Replace(spec));
+  if (!same && !dry_run) BW_RETURN_IF_ERROR(existing->Replace(spec));
   return response;
 }
 
-absl::StatusOr<PoolWorker*> PoolRegistry::Find(const std::string& name) const {
+absl::StatusOr<std::shared_ptr<PoolWorker>> PoolRegistry::Find(const std::string& name) const {
   absl::MutexLock lock(&mu_);
   auto it = pools_.find(name);
   if (it == pools_.end()) return absl::NotFoundError(absl::StrCat("pool '", name, "' not found"));
-  return it->second.get();
+  return it->second;
+}
+
+absl::Status PoolRegistry::Delete(const std::string& name) {
+  std::shared_ptr<PoolWorker> dropped;
+  {
+    absl::MutexLock lock(&mu_);
+    auto it = pools_.find(name);
+    if (it == pools_.end()) return absl::NotFoundError(absl::StrCat("pool '", name, "' not found"));
+    dropped = std::move(it->second);
+    pools_.erase(it);
+  }
+  // Open calls may still hold the worker; they see NOT_FOUND at their next batch, and
+  // the worker (with its metric series) goes when the last of them lets go.
+  dropped->MarkDeleted();
+  return absl::OkStatus();
+}
+
+std::vector<std::shared_ptr<PoolWorker>> PoolRegistry::All() const {
+  std::vector<std::shared_ptr<PoolWorker>> out;
+  absl::MutexLock lock(&mu_);
+  for (const auto& [name, w] : pools_) out.push_back(w);
+  return out;
+}
+
+v1::PoolDescription PoolRegistry::Describe(const PoolWorker& worker) {
+  v1::PoolDescription d;
+  const auto g = worker.current();
+  *d.mutable_spec() = g->spec;
+  d.set_generation(g->id);
+  d.set_queue_depth(static_cast<uint32_t>(worker.queue_depth()));
+  for (size_t q = 0; q < g->question_names.size(); ++q) {
+    v1::QuestionInfo* qi = d.add_questions();
+    qi->set_name(g->question_names[q]);
+    qi->set_unit(g->question_units[q]);
+  }
+  for (const auto& snap : worker.Snapshots()) {
+    v1::StreamInfo* s = d.add_streams();
+    s->set_name(snap->predictions.stream());
+    s->set_last_seq(snap->predictions.as_of_seq());
+    s->set_frames_applied(snap->frames_applied);
+    s->set_frames_rejected(snap->frames_rejected);
+    // Snapshots list questions in spec order (all are republished on a spec change).
+    const int n = std::min(snap->predictions.predictions_size(), d.questions_size());
+    for (int i = 0; i < n; ++i) {
+      const v1::Prediction& p = snap->predictions.predictions(i);
+      v1::QuestionInfo* qi = d.mutable_questions(i);
+      if (qi->name() != p.question()) continue;
+      if (p.label() == "learning") qi->set_streams_learning(qi->streams_learning() + 1);
+      if (p.label() == "settled") qi->set_streams_settled(qi->streams_settled() + 1);
+      if (p.label() == "diverging") qi->set_streams_diverging(qi->streams_diverging() + 1);
+    }
+  }
+  return d;
 }
 
 size_t PoolRegistry::size() const {

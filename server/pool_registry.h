@@ -2,34 +2,56 @@
 #ifndef BELLWETHER_SERVER_POOL_REGISTRY_H_
 #define BELLWETHER_SERVER_POOL_REGISTRY_H_
 
+#include <map>
 #include <memory>
 #include <string>
+#include <vector>
 
 #include "absl/base/thread_annotations.h"
-#include "absl/container/flat_hash_map.h"
 #include "absl/status/statusor.h"
 #include "absl/synchronization/mutex.h"
 #include "bellwether/v1/pool.pb.h"
 #include "bellwether/v1/service.pb.h"
+#include "server/daemon_metrics.h"
 #include "server/pool_worker.h"
 
 namespace bellwether::server {
 
 class PoolRegistry {
  public:
+  // `metrics` may be null (no metrics); it must outlive the registry. `options` is the
+  // template for every pool's worker (its `metrics` field is set per pool).
+  explicit PoolRegistry(DaemonMetrics* metrics = nullptr,
+                        PoolWorker::Options options = PoolWorker::Options());
+  ~PoolRegistry();
+
   // Creates the pool, or updates it (unchanged questions keep their learned state), and
   // reports what changed; with `dry_run` only validates and reports. INVALID_ARGUMENT
-  // for a bad spec (naming the field). Thread-safe.
-  absl::StatusOr<v1::ApplyPoolResponse> Apply(const v1::PoolSpec& spec, bool dry_run);
+  // for a bad spec (naming the field); ALREADY_EXISTS with `create_only` when the pool
+  // exists. Thread-safe.
+  absl::StatusOr<v1::ApplyPoolResponse> Apply(const v1::PoolSpec& spec, bool dry_run,
+                                              bool create_only = false);
 
-  // The pool's worker, or NOT_FOUND. The worker lives as long as the registry.
-  absl::StatusOr<PoolWorker*> Find(const std::string& name) const;
+  // The pool's worker, or NOT_FOUND. Callers may hold it after the pool is deleted (its
+  // later batches are refused).
+  absl::StatusOr<std::shared_ptr<PoolWorker>> Find(const std::string& name) const;
+
+  // Drops the pool; NOT_FOUND if unknown. Its worker stops once the last holder lets go.
+  absl::Status Delete(const std::string& name);
+
+  // Every pool's worker, in name order.
+  std::vector<std::shared_ptr<PoolWorker>> All() const;
+
+  // The pool's description (spec, generation, streams, per-question label counts).
+  static v1::PoolDescription Describe(const PoolWorker& worker);
 
   size_t size() const;
 
  private:
+  DaemonMetrics* const metrics_;
+  const PoolWorker::Options options_;
   mutable absl::Mutex mu_;
-  absl::flat_hash_map<std::string, std::unique_ptr<PoolWorker>> pools_ ABSL_GUARDED_BY(mu_);
+  std::map<std::string, std::shared_ptr<PoolWorker>> pools_ ABSL_GUARDED_BY(mu_);
 };
 
 }  // namespace bellwether::server

@@ -1,17 +1,36 @@
 #include "server/pool_worker.h"
 
+#include <algorithm>
+#include <chrono>
 #include <utility>
 
+#include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 
 namespace bellwether::server {
 
-PoolWorker::PoolWorker(std::unique_ptr<Pool> pool) : pool_(std::move(pool)) {
-  auto g = std::make_shared<Generation>();
-  g->id = 1;
-  g->spec = pool_->spec().proto;
-  g->signal_names = pool_->spec().signal_names;
-  generation_ = std::move(g);
+std::string RejectionReason(absl::string_view message) {
+  if (absl::StrContains(message, "seq does not increase") ||
+      absl::StrContains(message, "seq must be")) {
+    return "seq";
+  }
+  // Frame errors read "frame seq N: FIELD...: reason".
+  const size_t colon = message.find(": ");
+  absl::string_view rest = colon == absl::string_view::npos ? message : message.substr(colon + 2);
+  for (const char* field : {"values", "missing", "action", "behavior_prob"}) {
+    if (absl::StartsWith(rest, field)) return field;
+  }
+  if (absl::StartsWith(rest, "unix_micros") || absl::StartsWith(rest, "local_micros") ||
+      absl::StartsWith(rest, "time")) {
+    return "time";
+  }
+  return "other";
+}
+
+PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options)
+    : name_(pool->name()), options_(options), pool_(std::move(pool)) {
+  generation_ = MakeGeneration(1);
+  InstallSink();
   thread_ = std::thread([this] { Run(); });
 }
 
@@ -23,53 +42,139 @@ PoolWorker::~PoolWorker() {
   thread_.join();
 }
 
+std::shared_ptr<PoolWorker::Generation> PoolWorker::MakeGeneration(uint64_t id) const {
+  auto g = std::make_shared<Generation>();
+  g->id = id;
+  g->spec = pool_->spec().proto;
+  g->signal_names = pool_->spec().signal_names;
+  for (size_t q = 0; q < pool_->spec().num_visible_questions; ++q) {
+    g->question_names.push_back(pool_->spec().questions[q].name);
+    g->question_units.push_back(pool_->spec().questions[q].unit);
+  }
+  return g;
+}
+
+void PoolWorker::InstallSink() {
+  pool_->SetVerificationSink([this](const std::string& stream, size_t question, uint64_t seq,
+                                    double prediction, double realized, bool truncated) {
+    // Only streams that keep history, and only visible questions.
+    if (current_stream_ == nullptr || stream != *current_stream_) return;
+    if (question >= pool_->spec().num_visible_questions) return;
+    PendingPoint p{question, {}};
+    p.point.set_seq(seq);
+    p.point.set_predicted(prediction);
+    p.point.set_realized(realized);
+    p.point.set_truncated(truncated);
+    pending_points_.push_back(std::move(p));
+  });
+}
+
 std::shared_ptr<const PoolWorker::Generation> PoolWorker::current() const {
   absl::MutexLock lock(&generation_mu_);
   return generation_;
 }
 
-void PoolWorker::Enqueue(Task* task) {
+absl::Status PoolWorker::Submit(BatchTask task) {
+  if (deleted_.load()) return absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
   absl::MutexLock lock(&queue_mu_);
-  // Flow control: wait for room rather than grow the queue.
-  queue_mu_.Await(absl::Condition(
-      +[](std::deque<Task*>* q) { return q->size() < kQueueCapacity; }, &queue_));
-  queue_.push_back(task);
-  queue_mu_.Await(absl::Condition(+[](Task* t) { return t->done; }, task));
+  if (queue_.size() >= options_.queue_capacity) {
+    return absl::ResourceExhaustedError(
+        absl::StrCat("pool ", name_, ": ingest queue full (", options_.queue_capacity,
+                     " batches waiting); back off and retry"));
+  }
+  Task t;
+  t.batch = std::move(task);
+  queue_.push_back(std::move(t));
+  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+  return absl::OkStatus();
 }
 
 PoolWorker::BatchResult PoolWorker::ApplyBatch(const std::string& stream,
                                                const ColumnMap& columns, uint64_t generation,
                                                const v1::FrameBatch& batch) {
+  absl::Mutex mu;
+  bool done = false;
   BatchResult result;
-  Task task;
+  BatchTask task;
   task.stream = &stream;
   task.columns = &columns;
   task.generation = generation;
   task.batch = &batch;
-  task.result = &result;
-  Enqueue(&task);
+  task.done = [&](BatchResult r) {
+    absl::MutexLock lock(&mu);
+    result = std::move(r);
+    done = true;
+  };
+  if (absl::Status s = Submit(std::move(task)); !s.ok()) {
+    result.status = s;
+    return result;
+  }
+  absl::MutexLock lock(&mu);
+  mu.Await(absl::Condition(&done));
   return result;
 }
 
 absl::Status PoolWorker::Replace(const v1::PoolSpec& spec) {
   absl::Status status;
-  Task task;
-  task.replace = &spec;
-  task.replace_status = &status;
-  Enqueue(&task);
+  bool done = false;
+  absl::MutexLock lock(&queue_mu_);
+  // A spec change waits for room rather than failing: it is rare and small.
+  queue_mu_.Await(absl::Condition(
+      +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->queue_mu_) {
+        return w->queue_.size() < w->options_.queue_capacity;
+      },
+      this));
+  Task t;
+  t.replace = &spec;
+  t.replace_status = &status;
+  t.replace_done = &done;
+  queue_.push_back(std::move(t));
+  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+  queue_mu_.Await(absl::Condition(&done));
   return status;
 }
 
-std::shared_ptr<const v1::StreamPredictions> PoolWorker::Snapshot(
+void PoolWorker::MarkDeleted() { deleted_.store(true); }
+
+std::shared_ptr<const PoolWorker::StreamSnapshot> PoolWorker::Snapshot(
     const std::string& stream) const {
   absl::MutexLock lock(&snapshot_mu_);
   auto it = snapshots_.find(stream);
   return it == snapshots_.end() ? nullptr : it->second;
 }
 
+std::vector<std::shared_ptr<const PoolWorker::StreamSnapshot>> PoolWorker::Snapshots() const {
+  std::vector<std::shared_ptr<const StreamSnapshot>> out;
+  {
+    absl::MutexLock lock(&snapshot_mu_);
+    out.reserve(snapshots_.size());
+    for (const auto& [name, snap] : snapshots_) out.push_back(snap);
+  }
+  std::sort(out.begin(), out.end(), [](const auto& a, const auto& b) {
+    return a->predictions.stream() < b->predictions.stream();
+  });
+  return out;
+}
+
+void PoolWorker::History(const std::string& stream, const std::vector<size_t>& questions,
+                         std::vector<v1::QuestionHistory>* out, bool* kept) const {
+  out->clear();
+  absl::MutexLock lock(&history_mu_);
+  auto it = history_.find(stream);
+  *kept = it != history_.end();
+  if (!*kept) return;
+  const auto g = current();
+  for (size_t q : questions) {
+    v1::QuestionHistory h;
+    if (q < g->question_names.size()) h.set_question(g->question_names[q]);
+    it->second->CopyTo(q, &h);
+    out->push_back(std::move(h));
+  }
+}
+
 void PoolWorker::Run() {
   while (true) {
-    Task* task = nullptr;
+    Task task;
     {
       absl::MutexLock lock(&queue_mu_);
       queue_mu_.Await(absl::Condition(
@@ -78,16 +183,17 @@ void PoolWorker::Run() {
           },
           this));
       if (queue_.empty()) return;  // stopping with nothing left
-      task = queue_.front();
+      task = std::move(queue_.front());
       queue_.pop_front();
+      queue_depth_.store(queue_.size(), std::memory_order_relaxed);
     }
-    if (task->replace != nullptr) {
-      ReplaceTask(*task);
+    if (task.replace != nullptr) {
+      ReplaceTask(task);
+      absl::MutexLock lock(&queue_mu_);
+      *task.replace_done = true;
     } else {
-      ApplyTask(*task);
+      ApplyTask(task);
     }
-    absl::MutexLock lock(&queue_mu_);
-    task->done = true;
   }
 }
 
@@ -98,51 +204,111 @@ void PoolWorker::ReplaceTask(Task& task) {
     return;
   }
   pool_ = std::move(*next);
-  auto g = std::make_shared<Generation>();
-  g->spec = pool_->spec().proto;
-  g->signal_names = pool_->spec().signal_names;
+  InstallSink();
   {
     absl::MutexLock lock(&generation_mu_);
-    g->id = generation_->id + 1;
-    generation_ = std::move(g);
+    generation_ = MakeGeneration(generation_->id + 1);
   }
+  {
+    // Question indices changed: histories start over.
+    absl::MutexLock lock(&history_mu_);
+    for (auto& [stream, h] : history_) {
+      h = std::make_unique<StreamHistory>(pool_->spec().num_visible_questions,
+                                          options_.history_points);
+    }
+  }
+  counts_.clear();
   for (const std::string& stream : pool_->stream_names()) Publish(stream);
 }
 
 void PoolWorker::Publish(const std::string& stream) {
-  auto snapshot = std::make_shared<v1::StreamPredictions>();
-  if (pool_->GetPredictions(stream, snapshot.get()).ok()) {
-    absl::MutexLock lock(&snapshot_mu_);
-    snapshots_[stream] = std::move(snapshot);
-  }
+  auto snapshot = std::make_shared<StreamSnapshot>();
+  if (!pool_->GetPredictions(stream, &snapshot->predictions).ok()) return;
+  const StreamCounts& c = counts_[stream];
+  snapshot->frames_applied = c.applied;
+  snapshot->frames_rejected = c.rejected;
+  absl::MutexLock lock(&snapshot_mu_);
+  snapshots_[stream] = std::move(snapshot);
 }
 
 void PoolWorker::ApplyTask(Task& task) {
-  BatchResult& r = *task.result;
-  {
+  BatchTask& t = task.batch;
+  BatchResult r;
+  const auto start = std::chrono::steady_clock::now();
+  if (deleted_.load()) {
+    r.status = absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
+  } else {
     absl::MutexLock lock(&generation_mu_);
-    if (task.generation != generation_->id) {
+    if (t.generation != generation_->id) {
       r.status = absl::FailedPreconditionError(
-          absl::StrCat("pool ", generation_->spec.name(),
+          absl::StrCat("pool ", name_,
                        " was changed by ApplyPool after this ingest stream opened; reopen it"));
     }
   }
+  const std::string& stream = *t.stream;
   if (!r.status.ok()) {
-    r.applied_seq = pool_->last_seq(*task.stream);
+    r.applied_seq = pool_->last_seq(stream);
+    t.done(std::move(r));
     return;
   }
+  // History: the first `history_streams` streams to send frames keep one.
+  bool keep_history;
+  {
+    absl::MutexLock lock(&history_mu_);
+    auto it = history_.find(stream);
+    if (it == history_.end() && history_.size() < options_.history_streams) {
+      it = history_
+               .emplace(stream, std::make_unique<StreamHistory>(
+                                    pool_->spec().num_visible_questions, options_.history_points))
+               .first;
+    }
+    keep_history = it != history_.end();
+  }
+  current_stream_ = keep_history ? &stream : nullptr;
+  pending_points_.clear();
+
+  PoolMetrics* m = options_.metrics.get();
+  if (m != nullptr) m->FramesReceived(static_cast<double>(t.batch->frames_size()));
+  StreamCounts& counts = counts_[stream];
   FrameInput input;
-  for (const v1::Frame& frame : task.batch->frames()) {
-    absl::Status s = FrameFromProto(frame, *task.columns, &values_, &input);
-    if (s.ok()) s = pool_->Apply(*task.stream, input);
+  for (int i = 0; i < t.batch->frames_size(); ++i) {
+    const v1::Frame& frame = t.batch->frames(i);
+    absl::Status s = FrameFromProto(frame, *t.columns, &values_, &input);
+    if (s.ok()) s = pool_->Apply(stream, input);
     if (!s.ok()) {
-      r.status = std::move(s);
-      break;
+      v1::FrameRejection* rej = &r.rejected.emplace_back();
+      rej->set_seq(frame.seq());
+      rej->set_index(static_cast<uint32_t>(i));
+      rej->set_reason(std::string(s.message()));
+      ++counts.rejected;
+      if (m != nullptr) m->FrameRejected(RejectionReason(s.message()));
+      continue;
     }
     ++r.frames_applied;
   }
-  r.applied_seq = pool_->last_seq(*task.stream);
-  if (r.frames_applied > 0) Publish(*task.stream);
+  counts.applied += r.frames_applied;
+  current_stream_ = nullptr;
+  r.applied_seq = pool_->last_seq(stream);
+  if (r.frames_applied > 0 || !r.rejected.empty()) Publish(stream);
+  if (keep_history && r.frames_applied > 0) {
+    auto snap = Snapshot(stream);
+    absl::MutexLock lock(&history_mu_);
+    StreamHistory* h = history_[stream].get();
+    for (const PendingPoint& p : pending_points_) h->AddVerified(p.question, p.point);
+    if (snap != nullptr) h->MaybeSample(snap->predictions);
+  }
+  if (m != nullptr) {
+    m->FramesApplied(static_cast<double>(r.frames_applied));
+    m->BatchApplied(
+        std::chrono::duration<double>(std::chrono::steady_clock::now() - start).count());
+  }
+  if (t.want_predictions && r.frames_applied > 0) {
+    auto snap = Snapshot(stream);
+    if (snap != nullptr) {
+      r.predictions = std::shared_ptr<const v1::StreamPredictions>(snap, &snap->predictions);
+    }
+  }
+  t.done(std::move(r));
 }
 
 }  // namespace bellwether::server

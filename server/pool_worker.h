@@ -1,10 +1,17 @@
 // The single writer of one pool: a thread that applies frame batches in arrival order and
 // publishes each stream's answers as immutable snapshots, so readers never wait for it.
+//
+// Producers hand batches over through a bounded queue and never learn on their own
+// threads: Submit() either queues a batch (its callback runs on the writer thread once
+// the batch is applied) or refuses it at once when the queue is full, so memory never
+// grows with a producer that outpaces the engine.
 #ifndef BELLWETHER_SERVER_POOL_WORKER_H_
 #define BELLWETHER_SERVER_POOL_WORKER_H_
 
+#include <atomic>
 #include <cstdint>
 #include <deque>
+#include <functional>
 #include <memory>
 #include <string>
 #include <thread>
@@ -16,20 +23,46 @@
 #include "absl/synchronization/mutex.h"
 #include "bellwether/v1/frame.pb.h"
 #include "bellwether/v1/prediction.pb.h"
+#include "bellwether/v1/service.pb.h"
 #include "core/frame_input.h"
 #include "core/pool.h"
+#include "server/pool_metrics.h"
+#include "server/stream_history.h"
 
 namespace bellwether::server {
 
 class PoolWorker {
  public:
-  // Batches waiting for the writer; a producer that finds the queue full waits.
-  static constexpr size_t kQueueCapacity = 64;
+  // Batches (and spec changes) waiting for the writer, across all of the pool's streams.
+  static constexpr size_t kDefaultQueueCapacity = 64;
 
+  struct Options {
+    size_t queue_capacity = kDefaultQueueCapacity;
+    // Streams of this pool that keep a history for the status page and Progress (the
+    // first ones to send frames); 0 keeps none.
+    size_t history_streams = 16;
+    size_t history_points = StreamHistory::kDefaultPoints;
+    // Metrics sink; may be null (tests). Its series go when the worker goes.
+    std::shared_ptr<PoolMetrics> metrics;
+  };
+
+  // The outcome of one batch.
   struct BatchResult {
-    absl::Status status;          // first rejected frame's error, if any
+    // OK, or why the whole batch was refused (nothing of it applied): the spec changed
+    // since the stream opened (FAILED_PRECONDITION) or the pool was deleted (NOT_FOUND).
+    absl::Status status;
     uint64_t applied_seq = 0;     // the stream's last applied seq after the batch
     uint64_t frames_applied = 0;  // frames of this batch applied
+    std::vector<v1::FrameRejection> rejected;
+    // The stream's answers after the batch (when asked for and any frame applied).
+    std::shared_ptr<const v1::StreamPredictions> predictions;
+  };
+
+  // Everything a reader may want about one stream, published after each batch.
+  struct StreamSnapshot {
+    v1::StreamPredictions predictions;
+    uint64_t frames_applied = 0;
+    uint64_t frames_rejected = 0;
   };
 
   // One version of the pool's spec. An ingest session is bound to the generation it
@@ -38,70 +71,124 @@ class PoolWorker {
     uint64_t id = 0;
     v1::PoolSpec spec;
     std::vector<std::string> signal_names;
+    std::vector<std::string> question_names;  // visible questions, spec order
+    std::vector<std::string> question_units;
   };
 
   // Takes ownership of `pool` and starts the writer thread.
-  explicit PoolWorker(std::unique_ptr<Pool> pool);
-  // Applies every queued task, then stops the thread.
+  PoolWorker(std::unique_ptr<Pool> pool, Options options);
+  // Applies every queued task, then stops the thread. Must not run on the writer thread.
   ~PoolWorker();
 
   PoolWorker(const PoolWorker&) = delete;
   PoolWorker& operator=(const PoolWorker&) = delete;
 
+  const std::string& name() const { return name_; }
+
   // The current spec generation. Thread-safe.
   std::shared_ptr<const Generation> current() const;
 
-  // Queues `batch` of `stream` (columns mapped by `columns`, made for generation
-  // `generation`) and waits until the writer has applied it. Frames are applied in
-  // order; the first bad frame stops the batch, and its error is returned with the
-  // frames before it applied. Thread-safe.
-  BatchResult ApplyBatch(const std::string& stream, const ColumnMap& columns,
-                         uint64_t generation, const v1::FrameBatch& batch);
-
-  // Replaces the pool's spec in the writer thread, between batches, keeping what the
-  // pool learned for unchanged questions (Pool::CreateFrom). On error nothing changes.
-  // Thread-safe.
-  absl::Status Replace(const v1::PoolSpec& spec);
-
-  // The stream's answers as of its last applied batch, or nullptr if it has none.
-  // Thread-safe; never waits for the writer.
-  std::shared_ptr<const v1::StreamPredictions> Snapshot(const std::string& stream) const;
-
- private:
-  struct Task {
+  // A batch of `stream` (columns mapped by `columns`, made for generation `generation`).
+  // `stream`, `columns` and `batch` must outlive the callback.
+  struct BatchTask {
     const std::string* stream = nullptr;
     const ColumnMap* columns = nullptr;
     uint64_t generation = 0;
     const v1::FrameBatch* batch = nullptr;
-    BatchResult* result = nullptr;
+    bool want_predictions = false;
+    // Runs on the writer thread after the batch; must not block.
+    std::function<void(BatchResult)> done;
+  };
+
+  // Queues a batch. Returns RESOURCE_EXHAUSTED (the task is dropped, its callback never
+  // runs) when the queue is full, NOT_FOUND if the pool was deleted. Thread-safe.
+  absl::Status Submit(BatchTask task);
+
+  // Queues `batch` and waits for it (for in-process callers and tests); RESOURCE_EXHAUSTED
+  // when the queue is full.
+  BatchResult ApplyBatch(const std::string& stream, const ColumnMap& columns, uint64_t generation,
+                         const v1::FrameBatch& batch);
+
+  // Replaces the pool's spec in the writer thread, between batches, keeping what the
+  // pool learned for unchanged questions (Pool::CreateFrom). Waits for room in the queue
+  // rather than failing. On error nothing changes. Thread-safe.
+  absl::Status Replace(const v1::PoolSpec& spec);
+
+  // Refuses every later batch with NOT_FOUND (the registry dropped the pool). Queued
+  // batches are refused too. Thread-safe.
+  void MarkDeleted();
+
+  // The stream's state as of its last applied batch, or nullptr if it has none.
+  // Thread-safe; never waits for the writer.
+  std::shared_ptr<const StreamSnapshot> Snapshot(const std::string& stream) const;
+  // Every stream's snapshot, in name order. Thread-safe.
+  std::vector<std::shared_ptr<const StreamSnapshot>> Snapshots() const;
+
+  // The stream's history (empty with `kept` false when the stream keeps none).
+  // Thread-safe; holds the history lock only while copying.
+  void History(const std::string& stream, const std::vector<size_t>& questions,
+               std::vector<v1::QuestionHistory>* out, bool* kept) const;
+
+  // Batches and spec changes waiting for the writer.
+  size_t queue_depth() const { return queue_depth_.load(std::memory_order_relaxed); }
+
+ private:
+  struct Task {
+    BatchTask batch;
     const v1::PoolSpec* replace = nullptr;  // a spec change instead of a batch
     absl::Status* replace_status = nullptr;
-    bool done = false;
+    bool* replace_done = nullptr;
   };
 
   void Run();
   void ApplyTask(Task& task);
   void ReplaceTask(Task& task);
   void Publish(const std::string& stream);
-  void Enqueue(Task* task);
+  void InstallSink();
+  std::shared_ptr<Generation> MakeGeneration(uint64_t id) const;
 
+  const std::string name_;
+  const Options options_;
   std::unique_ptr<Pool> pool_;  // touched only by the writer thread
 
   mutable absl::Mutex generation_mu_;
   std::shared_ptr<const Generation> generation_ ABSL_GUARDED_BY(generation_mu_);
+  std::atomic<bool> deleted_{false};
 
   mutable absl::Mutex queue_mu_;
-  std::deque<Task*> queue_ ABSL_GUARDED_BY(queue_mu_);
+  std::deque<Task> queue_ ABSL_GUARDED_BY(queue_mu_);
   bool stopping_ ABSL_GUARDED_BY(queue_mu_) = false;
+  std::atomic<size_t> queue_depth_{0};
 
   mutable absl::Mutex snapshot_mu_;
-  absl::flat_hash_map<std::string, std::shared_ptr<const v1::StreamPredictions>> snapshots_
+  absl::flat_hash_map<std::string, std::shared_ptr<const StreamSnapshot>> snapshots_
       ABSL_GUARDED_BY(snapshot_mu_);
 
-  // Writer-thread scratch.
+  // Writer-thread state.
+  struct StreamCounts {
+    uint64_t applied = 0;
+    uint64_t rejected = 0;
+  };
+  absl::flat_hash_map<std::string, StreamCounts> counts_;
+  // Verified points gathered during a batch, moved into `history_` after it.
+  struct PendingPoint {
+    size_t question;
+    v1::VerifiedPoint point;
+  };
+  std::vector<PendingPoint> pending_points_;
+  const std::string* current_stream_ = nullptr;
+
+  mutable absl::Mutex history_mu_;
+  absl::flat_hash_map<std::string, std::unique_ptr<StreamHistory>> history_
+      ABSL_GUARDED_BY(history_mu_);
+
   std::vector<double> values_;
   std::thread thread_;
 };
+
+// A short label for why a frame was rejected, for metrics: "seq", "values", "missing",
+// "action", "behavior_prob", "time" or "other".
+std::string RejectionReason(absl::string_view message);
 
 }  // namespace bellwether::server
 

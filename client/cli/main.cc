@@ -187,13 +187,19 @@ int Stream(const Args& args) {
   auto session = client->OpenIngest(pool->second, stream->second, (*reader)->signal_columns());
   if (!session.ok()) return ServerError(session.status());
   v1::FrameBatch batch;
-  uint64_t sent = 0, applied_seq = 0;
+  uint64_t sent = 0, applied_seq = 0, rejected = 0;
+  constexpr uint64_t kRejectionsShown = 5;
   auto flush = [&]() -> absl::Status {
     if (batch.frames_size() == 0) return absl::OkStatus();
     auto ack = (*session)->Send(batch);
     if (!ack.ok()) return ack.status();
     sent += static_cast<uint64_t>(batch.frames_size());
     applied_seq = ack->applied_seq();
+    for (const v1::FrameRejection& r : ack->rejected()) {
+      if (rejected++ < kRejectionsShown) {
+        std::cerr << "bellwether: rejected frame seq " << r.seq() << ": " << r.reason() << "\n";
+      }
+    }
     batch.Clear();
     return absl::OkStatus();
   };
@@ -217,6 +223,11 @@ int Stream(const Args& args) {
   if (auto s = (*session)->Finish(); !s.ok()) return ServerError(s);
   std::cout << "streamed " << sent << " frames to " << pool->second << "/" << stream->second
             << " (applied seq " << applied_seq << ")\n";
+  if (rejected > 0) {
+    std::cerr << "bellwether: " << rejected << " of " << sent << " frames were rejected"
+              << (rejected > kRejectionsShown ? " (first 5 shown)" : "") << "\n";
+    return kExitPartial;
+  }
   return kExitOk;
 }
 

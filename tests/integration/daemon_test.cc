@@ -209,11 +209,17 @@ TEST_F(DaemonTest, BadInputIsInvalidArgumentNamingTheFieldAndChangesNothing) {
   two_values.mutable_frames(0)->add_values(2);
   cases.push_back({two_values, "values: has 2 entries, expected 1"});
   for (const Case& c : cases) {
+    // The bad frame is rejected in the reply; the call stays open.
     auto s = client_->OpenIngest("grid", "x", {});
     ASSERT_TRUE(s.ok());
     auto ack = (*s)->Send(c.batch);
-    EXPECT_EQ(ack.status().code(), absl::StatusCode::kInvalidArgument) << c.message;
-    EXPECT_THAT(ack.status().message(), HasSubstr(c.message));
+    ASSERT_TRUE(ack.ok()) << ack.status();
+    ASSERT_EQ(ack->rejected_size(), 1) << c.message;
+    EXPECT_EQ(ack->rejected(0).seq(), c.batch.frames(0).seq());
+    EXPECT_THAT(ack->rejected(0).reason(), HasSubstr(c.message));
+    EXPECT_EQ(ack->applied_seq(), 2u);
+    EXPECT_EQ(ack->frames_applied(), 0u);
+    EXPECT_TRUE((*s)->Finish().ok());
   }
   // Unknown pool / column / stream.
   auto s = client_->OpenIngest("nope", "x", {});
@@ -295,12 +301,14 @@ TEST(DaemonCli, ApplyStreamPredictThroughTheCli) {
   ASSERT_EQ(r.exit_code, 0) << r.err;
   EXPECT_THAT(r.out, HasSubstr("demand_next_12h"));
   EXPECT_THAT(r.out, HasSubstr("as of seq 2688"));
-  // Streaming the same file again: seq 1 does not increase -> server error, exit code 2.
+  // Streaming the same file again: every seq is old -> every frame rejected (reported
+  // with its seq and the field), nothing applied, exit code 3 (partial).
   r = testing::RunCommand(
       {BW_CLI_PATH, "--server", server, "stream", "--pool", "grid", "--stream", "uk", DemandPath()});
-  EXPECT_EQ(r.exit_code, 2);
-  EXPECT_THAT(r.err, HasSubstr("INVALID_ARGUMENT"));
-  EXPECT_THAT(r.err, HasSubstr("seq does not increase"));
+  EXPECT_EQ(r.exit_code, 3);
+  EXPECT_THAT(r.err, HasSubstr("rejected frame seq 1: frame seq 1: seq does not increase"));
+  EXPECT_THAT(r.err, HasSubstr("2688 of 2688 frames were rejected"));
+  EXPECT_THAT(r.out, HasSubstr("applied seq 2688"));
   // Unknown pool: NOT_FOUND, exit code 2.
   r = testing::RunCommand({BW_CLI_PATH, "--server", server, "predict", "--pool", "nope",
                            "--stream", "uk"});

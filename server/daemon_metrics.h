@@ -1,0 +1,74 @@
+// The daemon's Prometheus metrics: counters and histograms updated as work happens, and
+// per-pool / per-question gauges computed at scrape time from published snapshots.
+// Names follow Prometheus conventions (base units, `_total` counters).
+//
+//   bellwether_build_info{version}                    1
+//   bellwether_frames_received_total{pool}            frames in batches handed to a pool
+//   bellwether_frames_applied_total{pool}
+//   bellwether_frames_rejected_total{pool,reason}     reason: seq, values, missing, action,
+//                                                     behavior_prob, time, other
+//   bellwether_batch_apply_seconds{pool}              histogram: one batch in the writer
+//   bellwether_predict_seconds{method}                histogram: Predict / PredictBatch /
+//                                                     Progress handling time
+//   bellwether_ingest_queue_depth{pool}               batches waiting for the writer
+//   bellwether_streams{pool}, bellwether_questions{pool}
+//   bellwether_pool_question_streams{pool,label}      (question, stream) pairs per label
+//   Per question, for the first --metrics-max-questions (pool, question) pairs only
+//   (beyond the cap, the pool-level series above are the aggregate):
+//   bellwether_question_verified_rmse{pool,question,unit}  RMS over streams of verified RMSE
+//   bellwether_question_verified_nrmse{pool,question}      mean over streams
+//   bellwether_question_td_error_rms{pool,question}        RMS over streams
+//   bellwether_question_weight_change{pool,question}       mean over streams
+//   bellwether_question_streams{pool,question,label}       streams per progress label
+#ifndef BELLWETHER_SERVER_DAEMON_METRICS_H_
+#define BELLWETHER_SERVER_DAEMON_METRICS_H_
+
+#include <atomic>
+#include <memory>
+#include <string>
+
+#include "prometheus/counter.h"
+#include "prometheus/family.h"
+#include "prometheus/gauge.h"
+#include "prometheus/histogram.h"
+#include "prometheus/registry.h"
+#include "server/pool_metrics.h"
+
+namespace bellwether::server {
+
+class PoolRegistry;
+
+class DaemonMetrics {
+ public:
+  DaemonMetrics(const std::string& version, size_t max_question_series);
+
+  // Instruments for a new pool (its series go when the returned object goes).
+  std::shared_ptr<PoolMetrics> NewPoolMetrics(const std::string& pool);
+
+  // Records the handling time of a read RPC.
+  void ObserveRead(const std::string& method, double seconds);
+
+  // Where scrape-time gauges come from; set once before serving.
+  void SetPoolSource(const PoolRegistry* registry) { pools_.store(registry); }
+
+  // The exposition text of every metric (Prometheus text format 0.0.4).
+  std::string Scrape() const;
+
+ private:
+  class PoolCollector;
+  std::shared_ptr<prometheus::Registry> registry_;
+  prometheus::Family<prometheus::Counter>& received_;
+  prometheus::Family<prometheus::Counter>& applied_;
+  prometheus::Family<prometheus::Counter>& rejected_;
+  prometheus::Family<prometheus::Histogram>& batch_seconds_;
+  prometheus::Family<prometheus::Histogram>& read_seconds_;
+  prometheus::Histogram* predict_;
+  prometheus::Histogram* predict_batch_;
+  prometheus::Histogram* progress_;
+  std::atomic<const PoolRegistry*> pools_{nullptr};
+  const size_t max_question_series_;
+};
+
+}  // namespace bellwether::server
+
+#endif  // BELLWETHER_SERVER_DAEMON_METRICS_H_

@@ -1,0 +1,50 @@
+#include "server/pool_metrics.h"
+
+#include <utility>
+
+namespace bellwether::server {
+namespace {
+
+// Batch apply latency buckets, seconds: 50 us .. 2.5 s.
+prometheus::Histogram::BucketBoundaries BatchBuckets() {
+  return {5e-5, 1e-4, 2.5e-4, 5e-4, 1e-3, 2.5e-3, 5e-3, 1e-2, 2.5e-2, 5e-2, 0.1, 0.25, 0.5, 1, 2.5};
+}
+
+}  // namespace
+
+PoolMetrics::PoolMetrics(std::string pool, prometheus::Family<prometheus::Counter>& received,
+                         prometheus::Family<prometheus::Counter>& applied,
+                         prometheus::Family<prometheus::Counter>& rejected,
+                         prometheus::Family<prometheus::Histogram>& batch_seconds)
+    : pool_(std::move(pool)),
+      received_family_(received),
+      applied_family_(applied),
+      rejected_family_(rejected),
+      batch_family_(batch_seconds),
+      received_(&received.Add({{"pool", pool_}})),
+      applied_(&applied.Add({{"pool", pool_}})),
+      batch_seconds_(&batch_seconds.Add({{"pool", pool_}}, BatchBuckets())) {}
+
+PoolMetrics::~PoolMetrics() {
+  received_family_.Remove(received_);
+  applied_family_.Remove(applied_);
+  batch_family_.Remove(batch_seconds_);
+  absl::MutexLock lock(&mu_);
+  for (auto& [reason, counter] : rejected_) rejected_family_.Remove(counter);
+}
+
+void PoolMetrics::FrameRejected(const std::string& reason) {
+  prometheus::Counter* c;
+  {
+    absl::MutexLock lock(&mu_);
+    auto it = rejected_.find(reason);
+    if (it == rejected_.end()) {
+      it = rejected_.emplace(reason, &rejected_family_.Add({{"pool", pool_}, {"reason", reason}}))
+               .first;
+    }
+    c = it->second;
+  }
+  c->Increment();
+}
+
+}  // namespace bellwether::server

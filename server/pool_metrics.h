@@ -1,0 +1,47 @@
+// Prometheus instruments of one pool, updated by its writer thread and ingest reactors.
+// prometheus-cpp counters and histograms are thread-safe.
+#ifndef BELLWETHER_SERVER_POOL_METRICS_H_
+#define BELLWETHER_SERVER_POOL_METRICS_H_
+
+#include <string>
+
+#include "absl/base/thread_annotations.h"
+#include "absl/container/flat_hash_map.h"
+#include "absl/synchronization/mutex.h"
+#include "prometheus/counter.h"
+#include "prometheus/family.h"
+#include "prometheus/histogram.h"
+
+namespace bellwether::server {
+
+class PoolMetrics {
+ public:
+  PoolMetrics(std::string pool, prometheus::Family<prometheus::Counter>& received,
+              prometheus::Family<prometheus::Counter>& applied,
+              prometheus::Family<prometheus::Counter>& rejected,
+              prometheus::Family<prometheus::Histogram>& batch_seconds);
+  // Removes this pool's series from the families.
+  ~PoolMetrics();
+
+  void FramesReceived(double n) { received_->Increment(n); }
+  void FramesApplied(double n) { applied_->Increment(n); }
+  // `reason`: one of RejectionReason()'s labels.
+  void FrameRejected(const std::string& reason);
+  void BatchApplied(double seconds) { batch_seconds_->Observe(seconds); }
+
+ private:
+  const std::string pool_;
+  prometheus::Family<prometheus::Counter>& received_family_;
+  prometheus::Family<prometheus::Counter>& applied_family_;
+  prometheus::Family<prometheus::Counter>& rejected_family_;
+  prometheus::Family<prometheus::Histogram>& batch_family_;
+  prometheus::Counter* received_;
+  prometheus::Counter* applied_;
+  prometheus::Histogram* batch_seconds_;
+  absl::Mutex mu_;
+  absl::flat_hash_map<std::string, prometheus::Counter*> rejected_ ABSL_GUARDED_BY(mu_);
+};
+
+}  // namespace bellwether::server
+
+#endif  // BELLWETHER_SERVER_POOL_METRICS_H_
