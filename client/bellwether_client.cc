@@ -88,8 +88,29 @@ absl::StatusOr<v1::ApplyPoolResponse> Client::ApplyPool(const v1::PoolSpec& spec
   return response;
 }
 
+WatchSession::~WatchSession() {
+  if (!finished_) {
+    Cancel();
+    (void)Finish();
+  }
+}
+
+bool WatchSession::Next(v1::StreamPredictions* out) { return !finished_ && reader_->Read(out); }
+
+void WatchSession::Cancel() { context_->TryCancel(); }
+
+absl::Status WatchSession::Finish() {
+  if (finished_) return absl::OkStatus();
+  finished_ = true;
+  v1::StreamPredictions drain;
+  while (reader_->Read(&drain)) {
+  }
+  return FromGrpc(reader_->Finish());
+}
+
 absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(
-    const std::string& pool, const std::string& stream, const std::vector<std::string>& columns) {
+    const std::string& pool, const std::string& stream, const std::vector<std::string>& columns,
+    IngestOptions options) {
   std::unique_ptr<IngestSession> session(new IngestSession());
   session->context_ = std::make_unique<grpc::ClientContext>();
   session->stream_ = stub_->Ingest(session->context_.get());
@@ -97,26 +118,94 @@ absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(
   request.mutable_open()->set_pool(pool);
   request.mutable_open()->set_stream(stream);
   for (const std::string& c : columns) request.mutable_open()->add_columns(c);
-  if (!session->stream_->Write(request)) {
+  request.mutable_open()->set_resume(options.resume);
+  request.mutable_open()->set_return_predictions(options.return_predictions);
+  v1::IngestResponse first;
+  if (!session->stream_->Write(request) ||
+      (options.resume && !session->stream_->Read(&first))) {
     absl::Status s = session->Finish();
     if (s.ok()) s = absl::UnavailableError("ingest stream closed by the server");
     return s;
   }
+  session->resumed_seq_ = first.applied_seq();
   return session;
 }
 
 absl::StatusOr<v1::StreamPredictions> Client::Predict(const std::string& pool,
                                                       const std::string& stream,
-                                                      absl::Duration timeout) {
+                                                      absl::Duration timeout,
+                                                      const std::vector<std::string>& questions) {
   grpc::ClientContext context;
   SetDeadline(&context, timeout);
   v1::PredictRequest request;
   request.set_pool(pool);
   request.set_stream(stream);
+  for (const std::string& q : questions) request.add_questions(q);
   v1::StreamPredictions response;
   const grpc::Status s = stub_->Predict(&context, request, &response);
   if (!s.ok()) return FromGrpc(s);
   return response;
+}
+
+absl::StatusOr<v1::PredictBatchResponse> Client::PredictBatch(
+    const v1::PredictBatchRequest& request, absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::PredictBatchResponse response;
+  const grpc::Status s = stub_->PredictBatch(&context, request, &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
+absl::StatusOr<v1::ProgressResponse> Client::Progress(const std::string& pool,
+                                                      const std::string& stream,
+                                                      absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::ProgressRequest request;
+  request.set_pool(pool);
+  request.set_stream(stream);
+  v1::ProgressResponse response;
+  const grpc::Status s = stub_->Progress(&context, request, &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
+absl::StatusOr<v1::PoolDescription> Client::DescribePool(const std::string& pool,
+                                                         absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::DescribePoolRequest request;
+  request.set_pool(pool);
+  v1::PoolDescription response;
+  const grpc::Status s = stub_->DescribePool(&context, request, &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
+absl::StatusOr<v1::ListPoolsResponse> Client::ListPools(absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::ListPoolsResponse response;
+  const grpc::Status s = stub_->ListPools(&context, v1::ListPoolsRequest(), &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
+absl::Status Client::DeletePool(const std::string& pool, absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::DeletePoolRequest request;
+  request.set_pool(pool);
+  v1::DeletePoolResponse response;
+  return FromGrpc(stub_->DeletePool(&context, request, &response));
+}
+
+absl::StatusOr<std::unique_ptr<WatchSession>> Client::Watch(const v1::WatchRequest& request) {
+  std::unique_ptr<WatchSession> session(new WatchSession());
+  session->context_ = std::make_unique<grpc::ClientContext>();
+  session->reader_ = stub_->Watch(session->context_.get(), request);
+  return session;
 }
 
 absl::Status Client::WaitUntilReachable(absl::Duration timeout) {

@@ -40,12 +40,45 @@ class IngestSession {
   // Closes the stream and returns the server's final status.
   absl::Status Finish();
 
+  // With IngestOptions::resume: the stream's applied seq when the session opened.
+  uint64_t resumed_seq() const { return resumed_seq_; }
+
  private:
   friend class Client;
   IngestSession() = default;
+  uint64_t resumed_seq_ = 0;
   std::unique_ptr<grpc::ClientContext> context_;
   std::unique_ptr<grpc::ClientReaderWriter<v1::IngestRequest, v1::IngestResponse>> stream_;
   bool finished_ = false;
+};
+
+// A Watch call: the stream's answers as they change.
+class WatchSession {
+ public:
+  ~WatchSession();
+  WatchSession(const WatchSession&) = delete;
+  WatchSession& operator=(const WatchSession&) = delete;
+
+  // Waits for the next answers; false when the call ended (see Finish()).
+  bool Next(v1::StreamPredictions* out);
+  // Ends the call from this side.
+  void Cancel();
+  // The call's final status (CANCELLED after Cancel()).
+  absl::Status Finish();
+
+ private:
+  friend class Client;
+  WatchSession() = default;
+  std::unique_ptr<grpc::ClientContext> context_;
+  std::unique_ptr<grpc::ClientReader<v1::StreamPredictions>> reader_;
+  bool finished_ = false;
+};
+
+struct IngestOptions {
+  // Ask for the stream's applied seq at once (IngestSession::resumed_seq()).
+  bool resume = false;
+  // Every acknowledgement carries the stream's fresh answers.
+  bool return_predictions = false;
 };
 
 class Client {
@@ -60,10 +93,24 @@ class Client {
   // Opens an ingest stream for one stream of a pool. `columns` gives the order of
   // Frame.values (empty: the pool's declared order). Fails if the server rejects the open.
   absl::StatusOr<std::unique_ptr<IngestSession>> OpenIngest(
-      const std::string& pool, const std::string& stream, const std::vector<std::string>& columns);
-  // Current answers of one stream.
+      const std::string& pool, const std::string& stream, const std::vector<std::string>& columns,
+      IngestOptions options = IngestOptions());
+  // Current answers of one stream (every question, or the named ones in that order).
   absl::StatusOr<v1::StreamPredictions> Predict(const std::string& pool, const std::string& stream,
+                                                absl::Duration timeout = absl::Seconds(10),
+                                                const std::vector<std::string>& questions = {});
+  // Answers of many streams; each item has its own result.
+  absl::StatusOr<v1::PredictBatchResponse> PredictBatch(const v1::PredictBatchRequest& request,
+                                                        absl::Duration timeout = absl::Seconds(10));
+  // Progress measures and history of one stream's questions.
+  absl::StatusOr<v1::ProgressResponse> Progress(const std::string& pool, const std::string& stream,
                                                 absl::Duration timeout = absl::Seconds(10));
+  absl::StatusOr<v1::PoolDescription> DescribePool(const std::string& pool,
+                                                   absl::Duration timeout = absl::Seconds(10));
+  absl::StatusOr<v1::ListPoolsResponse> ListPools(absl::Duration timeout = absl::Seconds(10));
+  absl::Status DeletePool(const std::string& pool, absl::Duration timeout = absl::Seconds(10));
+  // Opens a Watch call (no deadline; end it with Cancel()).
+  absl::StatusOr<std::unique_ptr<WatchSession>> Watch(const v1::WatchRequest& request);
   // OK once the channel is connected, UNAVAILABLE if not within `timeout`.
   absl::Status WaitUntilReachable(absl::Duration timeout = absl::Seconds(5));
 

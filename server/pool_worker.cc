@@ -271,10 +271,20 @@ void PoolWorker::ApplyTask(Task& task) {
   if (m != nullptr) m->FramesReceived(static_cast<double>(t.batch->frames_size()));
   StreamCounts& counts = counts_[stream];
   FrameInput input;
+  uint64_t next_sample_seq = 0;
   for (int i = 0; i < t.batch->frames_size(); ++i) {
     const v1::Frame& frame = t.batch->frames(i);
     absl::Status s = FrameFromProto(frame, *t.columns, &values_, &input);
     if (s.ok()) s = pool_->Apply(stream, input);
+    if (s.ok() && keep_history && input.seq >= next_sample_seq) {
+      // A progress sample every StreamHistory::kSampleEvery frames, taken mid-batch so
+      // the trend has the same resolution whatever the producer's batch size.
+      next_sample_seq = input.seq + StreamHistory::kSampleEvery;
+      if (pool_->GetPredictions(stream, &sample_scratch_).ok()) {
+        absl::MutexLock lock(&history_mu_);
+        history_[stream]->MaybeSample(sample_scratch_);
+      }
+    }
     if (!s.ok()) {
       v1::FrameRejection* rej = &r.rejected.emplace_back();
       rej->set_seq(frame.seq());
@@ -291,11 +301,9 @@ void PoolWorker::ApplyTask(Task& task) {
   r.applied_seq = pool_->last_seq(stream);
   if (r.frames_applied > 0 || !r.rejected.empty()) Publish(stream);
   if (keep_history && r.frames_applied > 0) {
-    auto snap = Snapshot(stream);
     absl::MutexLock lock(&history_mu_);
     StreamHistory* h = history_[stream].get();
     for (const PendingPoint& p : pending_points_) h->AddVerified(p.question, p.point);
-    if (snap != nullptr) h->MaybeSample(snap->predictions);
   }
   if (m != nullptr) {
     m->FramesApplied(static_cast<double>(r.frames_applied));

@@ -183,6 +183,7 @@ class PoolWorker {
       ABSL_GUARDED_BY(history_mu_);
 
   std::vector<double> values_;
+  v1::StreamPredictions sample_scratch_;  // progress samples (reused: no allocation)
   std::thread thread_;
 };
 

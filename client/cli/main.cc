@@ -47,6 +47,9 @@ constexpr char kUsage[] =
     "                                       --dry-run shows what would change)\n"
     "  stream --pool P --stream S FILE.csv  send a CSV file's rows as frames of one stream\n"
     "  predict --pool P --stream S          print a stream's current answers\n"
+    "  pools                                list the daemon's pools\n"
+    "  describe --pool P                    a pool's streams and questions\n"
+    "  delete --pool P                      delete a pool and everything it learned\n"
     "  replay --spec F.json --csv F.csv --out PRED.csv\n"
     "                                       run a spec over history in-process (no server);\n"
     "                                       PRED.csv has each row's predictions;\n"
@@ -258,6 +261,51 @@ int Predict(const Args& args) {
   return kExitOk;
 }
 
+int Pools(const Args& args) {
+  auto client = Client::Connect(args.server);
+  auto list = client->ListPools();
+  if (!list.ok()) return ServerError(list.status());
+  std::cout << absl::StrFormat("%-32s %8s %10s %11s\n", "pool", "streams", "questions",
+                               "generation");
+  for (const v1::PoolSummary& p : list->pools()) {
+    std::cout << absl::StrFormat("%-32s %8d %10d %11d\n", p.name(), p.streams(), p.questions(),
+                                 p.generation());
+  }
+  return kExitOk;
+}
+
+int Describe(const Args& args) {
+  const auto pool = args.flags.find("pool");
+  if (pool == args.flags.end()) return UsageError("describe: expected --pool P");
+  auto client = Client::Connect(args.server);
+  auto d = client->DescribePool(pool->second);
+  if (!d.ok()) return ServerError(d.status());
+  std::cout << absl::StrFormat("pool %s  generation %d  queue %d batches\n", d->spec().name(),
+                               d->generation(), d->queue_depth());
+  std::cout << absl::StrFormat("\n%-32s %-10s %9s %8s %10s\n", "question", "unit", "learning",
+                               "settled", "diverging");
+  for (const v1::QuestionInfo& q : d->questions()) {
+    std::cout << absl::StrFormat("%-32s %-10s %9d %8d %10d\n", q.name(), q.unit(),
+                                 q.streams_learning(), q.streams_settled(), q.streams_diverging());
+  }
+  std::cout << absl::StrFormat("\n%-32s %12s %14s %15s\n", "stream", "last seq", "frames applied",
+                               "frames rejected");
+  for (const v1::StreamInfo& s : d->streams()) {
+    std::cout << absl::StrFormat("%-32s %12d %14d %15d\n", s.name(), s.last_seq(),
+                                 s.frames_applied(), s.frames_rejected());
+  }
+  return kExitOk;
+}
+
+int Delete(const Args& args) {
+  const auto pool = args.flags.find("pool");
+  if (pool == args.flags.end()) return UsageError("delete: expected --pool P");
+  auto client = Client::Connect(args.server);
+  if (auto s = client->DeletePool(pool->second); !s.ok()) return ServerError(s);
+  std::cout << "pool " << pool->second << " deleted\n";
+  return kExitOk;
+}
+
 int Replay(const Args& args) {
   const auto spec_flag = args.flags.find("spec"), csv = args.flags.find("csv"),
              out = args.flags.find("out");
@@ -414,6 +462,16 @@ int Main(int argc, char** argv) {
       return UsageError("predict: unknown flag --" + bad);
     }
     return Predict(args);
+  }
+  if (args.command == "pools") {
+    if (!OnlyFlags(args, {}, &bad)) return UsageError("pools: unknown flag --" + bad);
+    return Pools(args);
+  }
+  if (args.command == "describe" || args.command == "delete") {
+    if (!OnlyFlags(args, {"pool"}, &bad)) {
+      return UsageError(args.command + ": unknown flag --" + bad);
+    }
+    return args.command == "describe" ? Describe(args) : Delete(args);
   }
   if (args.command == "replay") {
     if (!OnlyFlags(args, {"spec", "csv", "out", "summary", "score-from-row"}, &bad)) {

@@ -16,6 +16,7 @@
 #include "core/io/spec_json.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
+#include "tests/integration/daemon_process.h"
 #include "tests/test_util.h"
 
 namespace bellwether {
@@ -23,56 +24,7 @@ namespace {
 
 using ::testing::HasSubstr;
 
-// Starts bellwetherd and reads the bound address from its first line of stdout.
-class Daemon {
- public:
-  Daemon() {
-    state_dir_ = testing::MakeTempDir("daemon");
-    int fds[2];
-    if (pipe(fds) != 0) return;
-    pid_ = fork();
-    if (pid_ == 0) {
-      // Die with the test process, so a test killed by a timeout leaves no daemon behind.
-      prctl(PR_SET_PDEATHSIG, SIGKILL);
-      dup2(fds[1], 1);
-      close(fds[0]);
-      execl(BW_DAEMON_PATH, BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--state-dir",
-            state_dir_.c_str(), static_cast<char*>(nullptr));
-      _exit(127);
-    }
-    close(fds[1]);
-    FILE* out = fdopen(fds[0], "r");
-    char line[256] = {};
-    if (out != nullptr && std::fgets(line, sizeof(line), out) != nullptr) {
-      std::string l(line);
-      if (absl::StartsWith(l, "listening on ")) {
-        address_ = l.substr(13);
-        while (!address_.empty() && (address_.back() == '\n' || address_.back() == '\r')) {
-          address_.pop_back();
-        }
-      }
-    }
-    if (out != nullptr) std::fclose(out);
-  }
-  ~Daemon() {
-    if (pid_ > 0 && !stopped_) Stop();
-  }
-  // Sends SIGTERM and returns the exit code.
-  int Stop() {
-    stopped_ = true;
-    kill(pid_, SIGTERM);
-    int status = 0;
-    waitpid(pid_, &status, 0);
-    return WIFEXITED(status) ? WEXITSTATUS(status) : 128 + WTERMSIG(status);
-  }
-  const std::string& address() const { return address_; }
-
- private:
-  pid_t pid_ = -1;
-  bool stopped_ = false;
-  std::string state_dir_;
-  std::string address_;
-};
+using Daemon = testing::DaemonProcess;
 
 std::string GridSpecPath() { return std::string(BW_TEST_DATA_DIR) + "/grid_pool.json"; }
 std::string DemandPath() {
@@ -309,11 +261,21 @@ TEST(DaemonCli, ApplyStreamPredictThroughTheCli) {
   EXPECT_THAT(r.err, HasSubstr("rejected frame seq 1: frame seq 1: seq does not increase"));
   EXPECT_THAT(r.err, HasSubstr("2688 of 2688 frames were rejected"));
   EXPECT_THAT(r.out, HasSubstr("applied seq 2688"));
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "pools"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("grid"));
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "describe", "--pool", "grid"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, ::testing::ContainsRegex("uk +2688 +2688 +2688"));
   // Unknown pool: NOT_FOUND, exit code 2.
   r = testing::RunCommand({BW_CLI_PATH, "--server", server, "predict", "--pool", "nope",
                            "--stream", "uk"});
   EXPECT_EQ(r.exit_code, 2);
   EXPECT_THAT(r.err, HasSubstr("NOT_FOUND"));
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "delete", "--pool", "grid"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  r = testing::RunCommand({BW_CLI_PATH, "--server", server, "describe", "--pool", "grid"});
+  EXPECT_EQ(r.exit_code, 2);
 }
 
 TEST(DaemonCli, DemoRunsABoundedNumberOfSteps) {
