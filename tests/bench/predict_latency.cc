@@ -7,10 +7,15 @@
 // full speed. Reports p50/p90/p99/p99.9/max per phase and the frames applied per second
 // (from the daemon's applied_seq acknowledgements) during the loaded phase.
 //
+// Within one process gRPC puts every channel to the same address on one TCP connection,
+// so by default ingest and Predict share an HTTP/2 connection; --ingest-process moves the
+// ingest threads into a forked child with its own connection (as separate producer and
+// query services would be).
+//
 // Usage (tests/bench/predict_latency.sh starts a daemon and runs this):
 //   predict_latency --server 127.0.0.1:PORT [--predicts 20000] [--streams 200]
 //                   [--questions 50] [--ingest-threads 2] [--batch 64]
-//                   [--max-seconds 120] [--seed 7] [--keep-pool]
+//                   [--max-seconds 120] [--seed 7] [--ingest-process] [--keep-pool]
 //
 // Nothing here asserts on time. The exit code is 0 unless a call failed in a way that
 // makes the figures meaningless (ApplyPool refused, a stream never created, predictions
@@ -80,8 +85,8 @@ constexpr char kUsage[] =
 bool ParseInt(const std::string& name, const std::string& value, int lo, int hi, int* out,
               std::string* error) {
   if (!absl::SimpleAtoi(value, out) || *out < lo || *out > hi) {
-    *error = absl::StrCat("--", name, ": expected an integer in ", lo, "..", hi, ", got '", value,
-                          "'");
+    *error =
+        absl::StrCat("--", name, ": expected an integer in ", lo, "..", hi, ", got '", value, "'");
     return false;
   }
   return true;
@@ -228,8 +233,8 @@ v1::PoolSpec FleetSpec(const std::string& name, int questions) {
         break;
     }
     if (i % 2 == 1) q->set_step_rule(v1::SETTLING);
-    q->set_name(absl::StrFormat("q%02d_%s_g%04d", i, kind,
-                                static_cast<int>(std::lround(gamma * 10000))));
+    q->set_name(
+        absl::StrFormat("q%02d_%s_g%04d", i, kind, static_cast<int>(std::lround(gamma * 10000))));
   }
   return spec;
 }
@@ -259,23 +264,23 @@ class Meter {
         absl::FromCivil(absl::CivilSecond(2026, 3, 2, 6, 0, 0), absl::UTCTimeZone()));
     const int64_t minutes = static_cast<int64_t>(seq_ - 1) * kFrameMinutes;
     const double day = static_cast<double>(minutes) / (24.0 * 60.0);
-    const double hour = std::fmod(day, 1.0) * 24.0;  // local standard time
+    const double hour = std::fmod(day, 1.0) * 24.0;             // local standard time
     const int weekday = static_cast<int>(std::fmod(day, 7.0));  // 0 = Monday
     std::normal_distribution<double> noise(0.0, 1.0);
     anomaly_c_ = 0.99 * anomaly_c_ + 0.3 * noise(rng_);
     // Early March start: mean temperature rising over the spring.
-    const double season = 11.0 - 13.0 * std::cos(2 * std::numbers::pi * (day + 60.0 - 15.0) / 365.0);
+    const double season =
+        11.0 - 13.0 * std::cos(2 * std::numbers::pi * (day + 60.0 - 15.0) / 365.0);
     const double temp = season + 6.0 * std::sin(2 * std::numbers::pi * (hour - 9.0) / 24.0) +
                         anomaly_c_ + site_offset_c_;
     const bool open = hour >= open_hour_ && hour < close_hour_;
     double occupancy = open ? 0.85 : 0.05;
     if (weekday >= 5) occupancy *= weekend_share_;
     occupancy = std::clamp(occupancy + 0.05 * noise(rng_), 0.0, 1.0);
-    const double power = std::clamp(base_kw_ + occupied_kw_ * occupancy +
-                                        heat_kw_per_c_ * std::max(0.0, 15.0 - temp) +
-                                        cool_kw_per_c_ * std::max(0.0, temp - 22.0) +
-                                        5.0 * noise(rng_),
-                                    0.0, kPowerMaxKw);
+    const double power = std::clamp(
+        base_kw_ + occupied_kw_ * occupancy + heat_kw_per_c_ * std::max(0.0, 15.0 - temp) +
+            cool_kw_per_c_ * std::max(0.0, temp - 22.0) + 5.0 * noise(rng_),
+        0.0, kPowerMaxKw);
     frame->Clear();
     frame->set_seq(seq_);
     frame->set_unix_micros(kStartMicros + minutes * 60 * 1000000);
@@ -286,7 +291,6 @@ class Meter {
   // Rewinds the last `frames` frames' seq so they can be regenerated (after a batch the
   // daemon refused as a whole). Values differ, which does not matter here.
   void Rewind(uint64_t frames) { seq_ -= frames; }
-  uint64_t seq() const { return seq_; }
 
  private:
   std::mt19937_64 rng_;
@@ -410,8 +414,7 @@ class IngestRunner {
     const size_t step = static_cast<size_t>(o_.ingest_threads);
     v1::FrameBatch batch;
     while (!stop_.load(std::memory_order_relaxed)) {
-      for (size_t i = t; i < states_.size() && !stop_.load(std::memory_order_relaxed);
-           i += step) {
+      for (size_t i = t; i < states_.size() && !stop_.load(std::memory_order_relaxed); i += step) {
         if (!SendOne(states_[i], batch)) {
           std::this_thread::sleep_for(std::chrono::milliseconds(10));
         }
@@ -486,10 +489,8 @@ class IngestRunner {
 };
 
 // ---------------------------------------------------------------------------------------
-// --ingest-process: the same IngestRunner in a child process with its own gRPC channel
-// (within one process, gRPC shares one TCP connection between channels to the same
-// address, so in-process ingest and Predict ride one HTTP/2 connection). The child is
-// forked before this process touches gRPC. Commands go down a pipe as single bytes;
+// --ingest-process: the same IngestRunner in a child process with its own connection.
+// The child is forked before this process touches gRPC. Commands go down a pipe as single bytes;
 // replies come back as lines.
 
 bool WriteAll(int fd, const std::string& text) {
@@ -517,10 +518,10 @@ bool ReadLine(int fd, std::string* line) {
 }
 
 std::string EncodeReport(const IngestReport& r) {
-  std::string out = absl::StrFormat(
-      "report %d %d %.9f %d %d %d %d %d %d\n", r.warm_frames, r.timed_frames, r.timed_seconds,
-      r.batches, r.resource_exhausted, r.timed_resource_exhausted, r.reopens, r.rejected_frames,
-      r.other_errors);
+  std::string out =
+      absl::StrFormat("report %d %d %.9f %d %d %d %d %d %d\n", r.warm_frames, r.timed_frames,
+                      r.timed_seconds, r.batches, r.resource_exhausted, r.timed_resource_exhausted,
+                      r.reopens, r.rejected_frames, r.other_errors);
   for (const auto& [what, n] : r.errors) {
     std::string clean = what;
     std::replace(clean.begin(), clean.end(), '\n', ' ');
@@ -534,8 +535,8 @@ bool DecodeReport(int fd, IngestReport* r) {
   std::string line;
   if (!ReadLine(fd, &line)) return false;
   unsigned long long v[8];
-  if (std::sscanf(line.c_str(), "report %llu %llu %lf %llu %llu %llu %llu %llu %llu", &v[0],
-                  &v[1], &r->timed_seconds, &v[2], &v[3], &v[4], &v[5], &v[6], &v[7]) != 9) {
+  if (std::sscanf(line.c_str(), "report %llu %llu %lf %llu %llu %llu %llu %llu %llu", &v[0], &v[1],
+                  &r->timed_seconds, &v[2], &v[3], &v[4], &v[5], &v[6], &v[7]) != 9) {
     return false;
   }
   r->warm_frames = v[0];
@@ -593,7 +594,7 @@ bool DecodeReport(int fd, IngestReport* r) {
 // Drives ingest either in this process (threads) or in the forked child.
 class IngestDriver {
  public:
-  // Must be called before this process touches gRPC when `separate_process`.
+  // With --ingest-process, forks: call it before this process touches gRPC.
   static std::unique_ptr<IngestDriver> Create(const Options& o, const std::string& pool,
                                               SteadyClock::time_point deadline) {
     std::unique_ptr<IngestDriver> d(new IngestDriver(o, pool, deadline));
@@ -850,8 +851,8 @@ int Run(const Options& o, const std::string& command_line) {
 
   if (!o.keep_pool) {
     // The client library has no DeletePool; use the generated stub directly.
-    auto stub = v1::Bellwether::NewStub(
-        grpc::CreateChannel(o.server, grpc::InsecureChannelCredentials()));
+    auto stub =
+        v1::Bellwether::NewStub(grpc::CreateChannel(o.server, grpc::InsecureChannelCredentials()));
     grpc::ClientContext context;
     context.set_deadline(std::chrono::system_clock::now() + std::chrono::seconds(10));
     v1::DeletePoolRequest request;
@@ -917,8 +918,8 @@ int Run(const Options& o, const std::string& command_line) {
       std::chrono::duration<double>(SteadyClock::now() - run_start).count());
   std::cout << "command: " << command_line << "\n";
   if (bad_answers > 0) {
-    std::cerr << "predict_latency: " << bad_answers << " answers lacked some of the "
-              << o.questions << " questions\n";
+    std::cerr << "predict_latency: " << bad_answers << " answers lacked some of the " << o.questions
+              << " questions\n";
     return 2;
   }
   return 0;

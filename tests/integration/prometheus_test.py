@@ -131,9 +131,14 @@ class Daemon:
     def __init__(self, path, log_path):
         self.log_path = log_path
         self.log = open(log_path, "w")
-        self.proc = subprocess.Popen(
-            [path, "--listen", "127.0.0.1:0", "--http", "127.0.0.1:0"],
-            stdout=subprocess.PIPE, stderr=self.log, text=True, preexec_fn=_die_with_parent)
+        try:
+            self.proc = subprocess.Popen(
+                [path, "--listen", "127.0.0.1:0", "--http", "127.0.0.1:0"],
+                stdout=subprocess.PIPE, stderr=self.log, text=True,
+                preexec_fn=_die_with_parent)
+        except OSError:
+            self.log.close()
+            raise
         _register(self.proc)
         self.lines = queue.Queue()
         self.drain = threading.Thread(target=self._drain, daemon=True)
