@@ -196,7 +196,10 @@ class BellwetherService::IngestReactor
       return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
                           "batch: every message after `open` must carry a frame batch");
     }
-    if (service_->draining()) return kDraining;
+    if (service_->draining()) {
+      if (worker_->metrics() != nullptr) worker_->metrics()->BatchRefused("draining");
+      return kDraining;
+    }
     if (Expired(context_)) return kExpired;
     batches_.push_back(std::move(*request_.mutable_batch()));
     PoolWorker::BatchTask task;

@@ -5,6 +5,7 @@
 #include <utility>
 #include <vector>
 
+#include "absl/time/clock.h"
 #include "prometheus/metric_family.h"
 #include "prometheus/text_serializer.h"
 #include "server/pool_registry.h"
@@ -58,6 +59,10 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
                          .Name("bellwether_batch_apply_seconds")
                          .Help("Time the writer spent applying one frame batch")
                          .Register(*registry_)),
+      refused_(prometheus::BuildCounter()
+                   .Name("bellwether_ingest_batches_refused_total")
+                   .Help("Whole frame batches turned away (nothing of them applied), by reason")
+                   .Register(*registry_)),
       read_seconds_(prometheus::BuildHistogram()
                         .Name("bellwether_predict_seconds")
                         .Help("Time to answer a read RPC (Predict, PredictBatch, Progress)")
@@ -72,10 +77,17 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
       .Register(*registry_)
       .Add({{"version", version}})
       .Set(1);
+  prometheus::BuildGauge()
+      .Name("bellwether_start_time_seconds")
+      .Help("Unix time the daemon started, in seconds")
+      .Register(*registry_)
+      .Add({})
+      .Set(static_cast<double>(absl::ToUnixMicros(absl::Now())) / 1e6);
 }
 
 std::shared_ptr<PoolMetrics> DaemonMetrics::NewPoolMetrics(const std::string& pool) {
-  return std::make_shared<PoolMetrics>(pool, received_, applied_, rejected_, batch_seconds_);
+  return std::make_shared<PoolMetrics>(pool, received_, applied_, rejected_, batch_seconds_,
+                                       refused_);
 }
 
 void DaemonMetrics::ObserveRead(const std::string& method, double seconds) {
@@ -83,7 +95,7 @@ void DaemonMetrics::ObserveRead(const std::string& method, double seconds) {
     predict_->Observe(seconds);
   } else if (method == "PredictBatch") {
     predict_batch_->Observe(seconds);
-  } else {
+  } else if (method == "Progress") {
     progress_->Observe(seconds);
   }
 }
@@ -99,7 +111,8 @@ std::string DaemonMetrics::Scrape() const {
                             "(question, stream) pairs of the pool by progress label");
     GaugeFamily rmse("bellwether_question_verified_rmse",
                      "Root mean square over streams of the question's verified RMSE, in the "
-                     "question's unit");
+                     "question's return units (discounted sum of the cumulant; `unit` is the "
+                     "cumulant's)");
     GaugeFamily nrmse("bellwether_question_verified_nrmse",
                       "Mean over streams of the question's verified normalized RMSE");
     GaugeFamily td("bellwether_question_td_error_rms",

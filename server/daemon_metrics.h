@@ -3,10 +3,14 @@
 // Names follow Prometheus conventions (base units, `_total` counters).
 //
 //   bellwether_build_info{version}                    1
+//   bellwether_start_time_seconds                     Unix time the daemon started
 //   bellwether_frames_received_total{pool}            frames in batches handed to a pool
 //   bellwether_frames_applied_total{pool}
 //   bellwether_frames_rejected_total{pool,reason}     reason: seq, values, missing, action,
 //                                                     behavior_prob, time, other
+//   bellwether_ingest_batches_refused_total{pool,reason}  whole batches turned away:
+//                                                     queue_full, pool_deleted,
+//                                                     pool_changed, draining
 //   bellwether_batch_apply_seconds{pool}              histogram: one batch in the writer
 //   bellwether_predict_seconds{method}                histogram: Predict / PredictBatch /
 //                                                     Progress handling time
@@ -15,7 +19,9 @@
 //   bellwether_pool_question_streams{pool,label}      (question, stream) pairs per label
 //   Per question, for the first --metrics-max-questions (pool, question) pairs only
 //   (beyond the cap, the pool-level series above are the aggregate):
-//   bellwether_question_verified_rmse{pool,question,unit}  RMS over streams of verified RMSE
+//   bellwether_question_verified_rmse{pool,question,unit}  RMS over streams of verified RMSE,
+//                                                     in the question's return units (the
+//                                                     discounted sum of the cumulant)
 //   bellwether_question_verified_nrmse{pool,question}      mean over streams
 //   bellwether_question_td_error_rms{pool,question}        RMS over streams
 //   bellwether_question_weight_change{pool,question}       mean over streams
@@ -61,6 +67,7 @@ class DaemonMetrics {
   prometheus::Family<prometheus::Counter>& applied_;
   prometheus::Family<prometheus::Counter>& rejected_;
   prometheus::Family<prometheus::Histogram>& batch_seconds_;
+  prometheus::Family<prometheus::Counter>& refused_;
   prometheus::Family<prometheus::Histogram>& read_seconds_;
   prometheus::Histogram* predict_;
   prometheus::Histogram* predict_batch_;

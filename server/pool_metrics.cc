@@ -15,15 +15,27 @@ prometheus::Histogram::BucketBoundaries BatchBuckets() {
 PoolMetrics::PoolMetrics(std::string pool, prometheus::Family<prometheus::Counter>& received,
                          prometheus::Family<prometheus::Counter>& applied,
                          prometheus::Family<prometheus::Counter>& rejected,
-                         prometheus::Family<prometheus::Histogram>& batch_seconds)
+                         prometheus::Family<prometheus::Histogram>& batch_seconds,
+                         prometheus::Family<prometheus::Counter>& refused)
     : pool_(std::move(pool)),
       received_family_(received),
       applied_family_(applied),
       rejected_family_(rejected),
       batch_family_(batch_seconds),
+      refused_family_(refused),
       received_(&received.Add({{"pool", pool_}})),
       applied_(&applied.Add({{"pool", pool_}})),
-      batch_seconds_(&batch_seconds.Add({{"pool", pool_}}, BatchBuckets())) {}
+      batch_seconds_(&batch_seconds.Add({{"pool", pool_}}, BatchBuckets())) {
+  // Every series exists from the start (at 0), so rate() sees the first event.
+  absl::MutexLock lock(&mu_);
+  for (const char* reason : {"seq", "values", "missing", "action", "behavior_prob", "time",
+                             "other"}) {
+    rejected_[reason] = &rejected_family_.Add({{"pool", pool_}, {"reason", reason}});
+  }
+  for (const char* reason : {"queue_full", "pool_deleted", "pool_changed", "draining"}) {
+    refused_[reason] = &refused_family_.Add({{"pool", pool_}, {"reason", reason}});
+  }
+}
 
 PoolMetrics::~PoolMetrics() {
   received_family_.Remove(received_);
@@ -31,6 +43,21 @@ PoolMetrics::~PoolMetrics() {
   batch_family_.Remove(batch_seconds_);
   absl::MutexLock lock(&mu_);
   for (auto& [reason, counter] : rejected_) rejected_family_.Remove(counter);
+  for (auto& [reason, counter] : refused_) refused_family_.Remove(counter);
+}
+
+void PoolMetrics::BatchRefused(const std::string& reason) {
+  prometheus::Counter* c;
+  {
+    absl::MutexLock lock(&mu_);
+    auto it = refused_.find(reason);
+    if (it == refused_.end()) {
+      it = refused_.emplace(reason, &refused_family_.Add({{"pool", pool_}, {"reason", reason}}))
+               .first;
+    }
+    c = it->second;
+  }
+  c->Increment();
 }
 
 void PoolMetrics::FrameRejected(const std::string& reason) {

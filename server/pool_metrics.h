@@ -19,7 +19,8 @@ class PoolMetrics {
   PoolMetrics(std::string pool, prometheus::Family<prometheus::Counter>& received,
               prometheus::Family<prometheus::Counter>& applied,
               prometheus::Family<prometheus::Counter>& rejected,
-              prometheus::Family<prometheus::Histogram>& batch_seconds);
+              prometheus::Family<prometheus::Histogram>& batch_seconds,
+              prometheus::Family<prometheus::Counter>& refused);
   // Removes this pool's series from the families.
   ~PoolMetrics();
 
@@ -28,6 +29,8 @@ class PoolMetrics {
   // `reason`: one of RejectionReason()'s labels.
   void FrameRejected(const std::string& reason);
   void BatchApplied(double seconds) { batch_seconds_->Observe(seconds); }
+  // A whole batch turned away; `reason`: queue_full, pool_deleted, pool_changed, draining.
+  void BatchRefused(const std::string& reason);
 
  private:
   const std::string pool_;
@@ -35,11 +38,13 @@ class PoolMetrics {
   prometheus::Family<prometheus::Counter>& applied_family_;
   prometheus::Family<prometheus::Counter>& rejected_family_;
   prometheus::Family<prometheus::Histogram>& batch_family_;
+  prometheus::Family<prometheus::Counter>& refused_family_;
   prometheus::Counter* received_;
   prometheus::Counter* applied_;
   prometheus::Histogram* batch_seconds_;
   absl::Mutex mu_;
   absl::flat_hash_map<std::string, prometheus::Counter*> rejected_ ABSL_GUARDED_BY(mu_);
+  absl::flat_hash_map<std::string, prometheus::Counter*> refused_ ABSL_GUARDED_BY(mu_);
 };
 
 }  // namespace bellwether::server

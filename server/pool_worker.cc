@@ -75,9 +75,14 @@ std::shared_ptr<const PoolWorker::Generation> PoolWorker::current() const {
 }
 
 absl::Status PoolWorker::Submit(BatchTask task) {
-  if (deleted_.load()) return absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
+  PoolMetrics* m = options_.metrics.get();
+  if (deleted_.load()) {
+    if (m != nullptr) m->BatchRefused("pool_deleted");
+    return absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
+  }
   absl::MutexLock lock(&queue_mu_);
   if (queue_.size() >= options_.queue_capacity) {
+    if (m != nullptr) m->BatchRefused("queue_full");
     return absl::ResourceExhaustedError(
         absl::StrCat("pool ", name_, ": ingest queue full (", options_.queue_capacity,
                      " batches waiting); back off and retry"));
@@ -246,7 +251,12 @@ void PoolWorker::ApplyTask(Task& task) {
     }
   }
   const std::string& stream = *t.stream;
+  PoolMetrics* m = options_.metrics.get();
   if (!r.status.ok()) {
+    if (m != nullptr) {
+      m->BatchRefused(r.status.code() == absl::StatusCode::kNotFound ? "pool_deleted"
+                                                                     : "pool_changed");
+    }
     r.applied_seq = pool_->last_seq(stream);
     t.done(std::move(r));
     return;
@@ -267,7 +277,6 @@ void PoolWorker::ApplyTask(Task& task) {
   current_stream_ = keep_history ? &stream : nullptr;
   pending_points_.clear();
 
-  PoolMetrics* m = options_.metrics.get();
   if (m != nullptr) m->FramesReceived(static_cast<double>(t.batch->frames_size()));
   StreamCounts& counts = counts_[stream];
   FrameInput input;

@@ -129,6 +129,9 @@ class PoolWorker {
   void History(const std::string& stream, const std::vector<size_t>& questions,
                std::vector<v1::QuestionHistory>* out, bool* kept) const;
 
+  // The pool's metrics (null without metrics).
+  PoolMetrics* metrics() const { return options_.metrics.get(); }
+
   // Batches and spec changes waiting for the writer.
   size_t queue_depth() const { return queue_depth_.load(std::memory_order_relaxed); }
 
