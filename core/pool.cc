@@ -1,5 +1,7 @@
 #include "core/pool.h"
 
+#include "core/io/state_codec.h"
+
 #include <algorithm>
 #include <cmath>
 #include <limits>
@@ -666,6 +668,142 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     pr->set_step_size_min(lo);
     pr->set_step_size_max(hi);
   }
+  return absl::OkStatus();
+}
+
+namespace {
+
+constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
+constexpr uint32_t kPoolStateVersion = 1;
+
+void SaveSparse(StateWriter& w, const SparseFeatures& x) {
+  w.PutVector(x.index);
+  w.PutVector(x.value);
+}
+
+bool LoadSparse(StateReader& r, SparseFeatures* x) {
+  return r.GetVector(&x->index) && r.GetVector(&x->value, x->index.size());
+}
+
+}  // namespace
+
+void Pool::SaveState(std::string* out) const {
+  StateWriter w(out);
+  w.Put(kPoolStateMagic);
+  w.Put(kPoolStateVersion);
+  w.PutVector(normalizer_.count);
+  w.PutVector(normalizer_.mean);
+  w.PutVector(normalizer_.m2);
+  w.Put<uint64_t>(pooled_params_.size());
+  for (const BlockParams& p : pooled_params_) p.SaveState(w);
+  w.Put<uint64_t>(pooled_regression_.size());
+  for (const std::vector<double>& v : pooled_regression_) w.PutVector(v);
+  w.PutVector(pooled_regression_updates_);
+  // Streams in name order, so the same state always gives the same bytes.
+  std::vector<std::string> names = stream_names();
+  std::sort(names.begin(), names.end());
+  w.Put<uint64_t>(names.size());
+  for (const std::string& name : names) {
+    const StreamState& st = *streams_.find(name)->second;
+    w.PutString(name);
+    w.Put(st.last_seq);
+    w.Put<uint8_t>(st.has_prev ? 1 : 0);
+    SaveSparse(w, st.prev_x);
+    w.Put<int32_t>(st.prev_action);
+    w.Put(st.prev_behavior_prob);
+    w.Put<uint8_t>(st.prev_time_micros.has_value() ? 1 : 0);
+    w.Put<int64_t>(st.prev_time_micros.value_or(0));
+    w.PutVector(st.answers);
+    w.PutVector(st.greedy_actions);
+    for (const BlockTraceState& b : st.block_states) b.SaveState(w);
+    for (const BlockParams& p : st.own_params) p.SaveState(w);
+    for (const ReturnVerifier& v : st.verifiers) v.SaveState(w);
+    w.PutVector(st.behavior_counts);
+    w.Put(st.feature_gap_frames);
+    for (const std::vector<double>& v : st.regression) w.PutVector(v);
+    w.PutVector(st.regression_updates);
+  }
+}
+
+absl::Status Pool::RestoreState(absl::string_view state) {
+  StateReader r(state);
+  uint32_t magic = 0, version = 0;
+  if (!r.Get(&magic) || !r.Get(&version)) return r.status();
+  if (magic != kPoolStateMagic) {
+    r.Fail("not a pool state (bad magic)");
+    return r.status();
+  }
+  if (version != kPoolStateVersion) {
+    return absl::FailedPreconditionError(absl::StrCat(
+        "pool state format version ", version, " is not supported (this build reads version ",
+        kPoolStateVersion, ")"));
+  }
+  auto bad = [&r](absl::string_view what) {
+    r.Fail(what);
+    return r.status();
+  };
+  if (!r.GetVector(&normalizer_.count, normalizer_.count.size()) ||
+      !r.GetVector(&normalizer_.mean, normalizer_.mean.size()) ||
+      !r.GetVector(&normalizer_.m2, normalizer_.m2.size())) {
+    return r.status();
+  }
+  uint64_t n = 0;
+  if (!r.Get(&n)) return r.status();
+  if (n != pooled_params_.size()) return bad("pooled block count differs from the spec's");
+  for (BlockParams& p : pooled_params_) {
+    if (!p.LoadState(r)) return r.status();
+  }
+  if (!r.Get(&n)) return r.status();
+  if (n != pooled_regression_.size()) return bad("pooled regression count differs");
+  for (std::vector<double>& v : pooled_regression_) {
+    if (!r.GetVector(&v, v.size())) return r.status();
+  }
+  if (!r.GetVector(&pooled_regression_updates_, pooled_regression_updates_.size())) {
+    return r.status();
+  }
+  uint64_t streams = 0;
+  if (!r.Get(&streams)) return r.status();
+  streams_.clear();
+  for (uint64_t i = 0; i < streams; ++i) {
+    std::string name;
+    if (!r.GetString(&name)) return r.status();
+    if (name.empty() || streams_.contains(name)) return bad("bad or repeated stream name");
+    StreamState& st = GetOrCreateStream(name);
+    uint8_t has_prev = 0, has_time = 0;
+    int32_t prev_action = -1;
+    int64_t time = 0;
+    if (!r.Get(&st.last_seq) || !r.Get(&has_prev) || !LoadSparse(r, &st.prev_x) ||
+        !r.Get(&prev_action) || !r.Get(&st.prev_behavior_prob) || !r.Get(&has_time) ||
+        !r.Get(&time) || !r.GetVector(&st.answers, st.answers.size()) ||
+        !r.GetVector(&st.greedy_actions, st.greedy_actions.size())) {
+      return r.status();
+    }
+    for (uint32_t f : st.prev_x.index) {
+      if (f >= spec_.recipe->num_features()) return bad("feature index out of range");
+    }
+    st.prev_x.Reserve(spec_.recipe->max_active());  // no allocation on the next frames
+    st.has_prev = has_prev != 0;
+    st.prev_action = prev_action;
+    if (has_time != 0) st.prev_time_micros = time;
+    for (BlockTraceState& b : st.block_states) {
+      if (!b.LoadState(r)) return r.status();
+    }
+    for (BlockParams& p : st.own_params) {
+      if (!p.LoadState(r)) return r.status();
+    }
+    for (ReturnVerifier& v : st.verifiers) {
+      if (!v.LoadState(r)) return r.status();
+    }
+    if (!r.GetVector(&st.behavior_counts, st.behavior_counts.size()) ||
+        !r.Get(&st.feature_gap_frames)) {
+      return r.status();
+    }
+    for (std::vector<double>& v : st.regression) {
+      if (!r.GetVector(&v, v.size())) return r.status();
+    }
+    if (!r.GetVector(&st.regression_updates, st.regression_updates.size())) return r.status();
+  }
+  if (!r.done()) return bad("trailing bytes after the pool state");
   return absl::OkStatus();
 }
 

@@ -75,6 +75,15 @@ class Pool {
   // Bytes the verified-error bookkeeping holds for `stream` (fixed per stream).
   size_t verification_memory_bytes(absl::string_view stream) const;
 
+  // Checkpoints. SaveState appends every bit of learned state (weights, traces, step-size
+  // and normalizer state, progress, verified-error buffers, each stream's last frame and
+  // seq) to `out`; Restore loads it into a pool made from the same spec. Applying the
+  // same later frames to the saved pool and to the restored one gives bit-identical
+  // answers. Restore fails with DATA_LOSS (naming the byte offset) on a damaged payload
+  // and leaves the pool unusable; callers discard it then.
+  void SaveState(std::string* out) const;
+  absl::Status RestoreState(absl::string_view state);
+
   // Learned parameters of block `b` for `stream` (the pool's own when pooled); nullptr
   // if unknown. For tests and diagnostics.
   const BlockParams* block_params(absl::string_view stream, size_t b) const;

@@ -1,5 +1,7 @@
 #include "core/learners/block_learner.h"
 
+#include "core/io/state_codec.h"
+
 #include <algorithm>
 #include <cmath>
 #include <limits>
@@ -694,6 +696,90 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
     p.implausible_since_snapshot_ = false;
   }
   return false;
+}
+
+namespace {
+
+void SaveCounters(StateWriter& w, const QuestionCounters& c) {
+  w.Put(c.updates);
+  w.Put(c.skipped_missing);
+  w.Put(c.divergence_resets);
+  w.Put(c.step_scale);
+  w.Put(c.max_abs_cumulant);
+  const LearningProgress& p = c.progress;
+  for (double v : {p.td_mean, p.td_sq, p.td_fast_mean, p.weight_change, p.weight_change_peak,
+                   p.rho_mean, p.rho_sq, p.rupee}) {
+    w.Put(v);
+  }
+  w.Put(p.observed);
+  w.Put(p.last_reset_at);
+  w.Put<uint8_t>(p.reset_ever ? 1 : 0);
+}
+
+bool LoadCounters(StateReader& r, QuestionCounters* c) {
+  LearningProgress& p = c->progress;
+  uint8_t reset_ever = 0;
+  const bool ok = r.Get(&c->updates) && r.Get(&c->skipped_missing) &&
+                  r.Get(&c->divergence_resets) && r.Get(&c->step_scale) &&
+                  r.Get(&c->max_abs_cumulant) && r.Get(&p.td_mean) && r.Get(&p.td_sq) &&
+                  r.Get(&p.td_fast_mean) && r.Get(&p.weight_change) &&
+                  r.Get(&p.weight_change_peak) && r.Get(&p.rho_mean) && r.Get(&p.rho_sq) &&
+                  r.Get(&p.rupee) && r.Get(&p.observed) && r.Get(&p.last_reset_at) &&
+                  r.Get(&reset_ever);
+  p.reset_ever = reset_ever != 0;
+  return ok;
+}
+
+}  // namespace
+
+void BlockParams::SaveState(StateWriter& w) const {
+  w.Put(rows_);
+  w.Put(cols_);
+  for (const std::vector<float>* v :
+       {&w_, &aux_, &alpha_, &ss_h_, &ss_v_, &good_w_, &rupee_h_, &rupee_u_, &initial_alpha_}) {
+    w.PutVector(*v);
+  }
+  w.Put(rupee_scale_);
+  w.PutVector(rupee_dot_);
+  w.Put(updates_since_snapshot_);
+  w.Put<uint8_t>(implausible_since_snapshot_ ? 1 : 0);
+  w.PutVector(cumulant_mean_);
+  w.PutVector(cumulant_count_);
+  for (const QuestionCounters& c : counters_) SaveCounters(w, c);
+}
+
+bool BlockParams::LoadState(StateReader& r) {
+  uint32_t rows = 0, cols = 0;
+  if (!r.Get(&rows) || !r.Get(&cols)) return false;
+  if (rows != rows_ || cols != cols_) return r.Fail("block shape differs from the spec's");
+  for (std::vector<float>* v :
+       {&w_, &aux_, &alpha_, &ss_h_, &ss_v_, &good_w_, &rupee_h_, &rupee_u_, &initial_alpha_}) {
+    if (!r.GetVector(v, v->size())) return false;
+  }
+  uint8_t implausible = 0;
+  if (!r.Get(&rupee_scale_) || !r.GetVector(&rupee_dot_, cols_) ||
+      !r.Get(&updates_since_snapshot_) || !r.Get(&implausible) ||
+      !r.GetVector(&cumulant_mean_, cols_) || !r.GetVector(&cumulant_count_, cols_)) {
+    return false;
+  }
+  implausible_since_snapshot_ = implausible != 0;
+  for (QuestionCounters& c : counters_) {
+    if (!LoadCounters(r, &c)) return false;
+  }
+  return true;
+}
+
+void BlockTraceState::SaveState(StateWriter& w) const {
+  trace.SaveState(w);
+  w.Put(follow_on);
+  w.Put(rho_prev);
+  w.Put(gamma_t);
+  w.PutVector(v_old);
+}
+
+bool BlockTraceState::LoadState(StateReader& r) {
+  return trace.LoadState(r) && r.Get(&follow_on) && r.Get(&rho_prev) && r.Get(&gamma_t) &&
+         r.GetVector(&v_old, v_old.size());
 }
 
 }  // namespace bellwether

@@ -56,6 +56,9 @@
 
 namespace bellwether {
 
+class StateWriter;
+class StateReader;
+
 // Per-question counters of a block's learning (part of its learned state).
 struct QuestionCounters {
   uint64_t updates = 0;
@@ -104,6 +107,10 @@ class BlockParams {
   std::vector<QuestionCounters>& counters() { return counters_; }
   const std::vector<QuestionCounters>& counters() const { return counters_; }
 
+  // Checkpoints: every array and counter (the shape comes from the spec on load).
+  void SaveState(StateWriter& w) const;
+  bool LoadState(StateReader& r);
+
  private:
   friend class BlockLearner;
   uint32_t rows_, cols_;
@@ -135,6 +142,8 @@ struct BlockTraceState {
   double rho_prev = 1;   // emphatic: rho_{t-1}
   double gamma_t = 0;    // continuation into the current state
   std::vector<double> v_old;  // true online: per question
+  void SaveState(StateWriter& w) const;
+  bool LoadState(StateReader& r);
   void Reset() {
     trace.Clear();
     follow_on = 0;

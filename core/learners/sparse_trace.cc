@@ -1,5 +1,7 @@
 #include "core/learners/sparse_trace.h"
 
+#include "core/io/state_codec.h"
+
 #include <cmath>
 #include <limits>
 
@@ -40,6 +42,27 @@ void SparseTrace::Accumulate(const SparseFeatures& x, float scale, uint32_t stri
 void SparseTrace::Clear() {
   for (uint32_t j : active_) e_[j] = 0.0f;
   active_.clear();
+}
+
+void SparseTrace::SaveState(StateWriter& w) const {
+  w.PutVector(active_);
+  std::vector<float> values;
+  values.reserve(active_.size());
+  for (uint32_t f : active_) values.push_back(e_[f]);
+  w.PutVector(values);
+}
+
+bool SparseTrace::LoadState(StateReader& r) {
+  Clear();
+  std::vector<uint32_t> active;
+  std::vector<float> values;
+  if (!r.GetVector(&active) || !r.GetVector(&values, active.size())) return false;
+  for (size_t i = 0; i < active.size(); ++i) {
+    if (active[i] >= e_.size()) return r.Fail("trace row out of range");
+    e_[active[i]] = values[i];
+  }
+  active_ = std::move(active);
+  return true;
 }
 
 }  // namespace bellwether

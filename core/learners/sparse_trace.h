@@ -10,6 +10,9 @@
 
 namespace bellwether {
 
+class StateWriter;
+class StateReader;
+
 class SparseTrace {
  public:
   // Entries whose magnitude falls below this after decay are set to zero.
@@ -29,6 +32,10 @@ class SparseTrace {
   // Non-zero entries: feature indices and their trace values, same order.
   const std::vector<uint32_t>& active() const { return active_; }
   float value(uint32_t feature) const { return e_[feature]; }
+
+ // Checkpoints: the active entries in their order (the order updates visit them).
+  void SaveState(StateWriter& w) const;
+  bool LoadState(StateReader& r);
 
  private:
   float prune_;

@@ -1,5 +1,7 @@
 #include "core/progress/return_verifier.h"
 
+#include "core/io/state_codec.h"
+
 #include <algorithm>
 #include <cmath>
 
@@ -103,6 +105,73 @@ VerifiedErrorStats ReturnVerifier::stats() const {
 
 size_t ReturnVerifier::memory_bytes() const {
   return sizeof(*this) + held_.capacity() * sizeof(Held) + window_.capacity() * sizeof(Verified);
+}
+
+void ReturnVerifier::SaveState(StateWriter& w) const {
+  w.Put<uint64_t>(held_.size());
+  w.Put<uint64_t>(held_start_);
+  w.Put<uint64_t>(held_count_);
+  const size_t cap = held_.size();
+  for (size_t i = 0; i < held_count_; ++i) {
+    const Held& h = held_[(held_start_ + i) % cap];
+    w.Put(h.prediction);
+    w.Put(h.realized);
+    w.Put(h.discount);
+    w.Put(h.weight);
+    w.Put(h.seq);
+    w.Put(h.steps);
+  }
+  w.Put<uint64_t>(window_.size());
+  w.Put<uint64_t>(window_next_);
+  w.Put<uint64_t>(window_count_);
+  for (size_t i = 0; i < window_count_; ++i) {
+    w.Put(window_[i].error);
+    w.Put(window_[i].realized);
+    w.Put(window_[i].weight);
+  }
+  w.Put(totals_.count);
+  w.Put(totals_.truncated);
+  w.Put(totals_.unverifiable);
+  for (const CalibrationBin& b : totals_.calibration) {
+    w.Put(b.count);
+    w.Put(b.sum_predicted);
+    w.Put(b.sum_observed);
+  }
+}
+
+bool ReturnVerifier::LoadState(StateReader& r) {
+  uint64_t cap = 0, start = 0, count = 0;
+  if (!r.Get(&cap) || !r.Get(&start) || !r.Get(&count)) return false;
+  if (cap != held_.size()) return r.Fail("verifier horizon differs from the spec's");
+  if (start >= cap || count > cap) return r.Fail("verifier ring index out of range");
+  held_start_ = start;
+  held_count_ = count;
+  for (size_t i = 0; i < count; ++i) {
+    Held& h = held_[(start + i) % cap];
+    if (!r.Get(&h.prediction) || !r.Get(&h.realized) || !r.Get(&h.discount) ||
+        !r.Get(&h.weight) || !r.Get(&h.seq) || !r.Get(&h.steps)) {
+      return false;
+    }
+  }
+  uint64_t wsize = 0, wnext = 0, wcount = 0;
+  if (!r.Get(&wsize) || !r.Get(&wnext) || !r.Get(&wcount)) return false;
+  if (wsize != window_.size()) return r.Fail("verifier window differs from the spec's");
+  if (wnext >= wsize || wcount > wsize) return r.Fail("verifier window index out of range");
+  window_next_ = wnext;
+  window_count_ = wcount;
+  for (size_t i = 0; i < wcount; ++i) {
+    if (!r.Get(&window_[i].error) || !r.Get(&window_[i].realized) ||
+        !r.Get(&window_[i].weight)) {
+      return false;
+    }
+  }
+  if (!r.Get(&totals_.count) || !r.Get(&totals_.truncated) || !r.Get(&totals_.unverifiable)) {
+    return false;
+  }
+  for (CalibrationBin& b : totals_.calibration) {
+    if (!r.Get(&b.count) || !r.Get(&b.sum_predicted) || !r.Get(&b.sum_observed)) return false;
+  }
+  return true;
 }
 
 }  // namespace bellwether

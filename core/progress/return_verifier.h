@@ -11,6 +11,9 @@
 
 namespace bellwether {
 
+class StateWriter;
+class StateReader;
+
 // One calibration bin of a probability question: predictions in [lo, lo + 0.1).
 struct CalibrationBin {
   uint64_t count = 0;
@@ -85,6 +88,10 @@ class ReturnVerifier {
   VerifiedErrorStats stats() const;
   // Bytes reserved by this verifier (fixed at construction).
   size_t memory_bytes() const;
+
+  // Checkpoints: held predictions, the verified window and totals, exactly as laid out.
+  void SaveState(StateWriter& w) const;
+  bool LoadState(StateReader& r);
 
  private:
   struct Held {
