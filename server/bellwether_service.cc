@@ -37,6 +37,8 @@ absl::Status RequirePool(const std::string& pool, const char* field) {
 
 const grpc::Status kDraining(grpc::StatusCode::UNAVAILABLE,
                              "bellwetherd is draining for shutdown; retry after it restarts");
+const grpc::Status kLoading(grpc::StatusCode::UNAVAILABLE,
+                            "bellwetherd is loading its state (recovery); retry shortly");
 
 // Whether the call's deadline has already passed.
 bool Expired(const grpc::CallbackServerContext* context) {
@@ -103,8 +105,9 @@ class BellwetherService::IngestReactor
   IngestReactor(BellwetherService* service, grpc::CallbackServerContext* context)
       : service_(service), context_(context) {
     service_->Register(this);
-    if (service_->draining()) {
-      Finish(kDraining);
+    if (grpc::Status g = service_->Gate(); !g.ok()) {
+      finishing_ = true;
+      Finish(g);
       return;
     }
     read_outstanding_ = true;
@@ -186,6 +189,7 @@ class BellwetherService::IngestReactor
       v1::IngestResponse r;
       const auto snap = worker_->Snapshot(stream_);
       r.set_applied_seq(snap == nullptr ? 0 : snap->predictions.as_of_seq());
+      r.set_durable_seq(worker_->DurableSeq(stream_));
       writes_.push_back(std::move(r));
     }
     return grpc::Status::OK;
@@ -232,6 +236,8 @@ class BellwetherService::IngestReactor
       v1::IngestResponse response;
       response.set_applied_seq(r.applied_seq);
       response.set_frames_applied(frames_applied_);
+      response.set_durable_seq(r.durable_seq);
+      response.set_duplicates(r.duplicates);
       for (v1::FrameRejection& rej : r.rejected) *response.add_rejected() = std::move(rej);
       if (r.predictions != nullptr) *response.mutable_predictions() = *r.predictions;
       writes_.push_back(std::move(response));
@@ -367,7 +373,7 @@ class BellwetherService::WatchReactor : public grpc::ServerWriteReactor<v1::Stre
 
  private:
   grpc::Status Start() {
-    if (service_->draining()) return kDraining;
+    if (grpc::Status g = service_->Gate(); !g.ok()) return g;
     if (auto s = RequirePool(request_.pool(), "pool"); !s.ok()) return ToGrpc(s);
     if (auto s = ValidateStreamName(request_.stream(), "stream"); !s.ok()) return ToGrpc(s);
     const uint32_t ms =
@@ -453,6 +459,27 @@ void BellwetherService::WatchLoop() {
   }
 }
 
+grpc::Status BellwetherService::Gate() const {
+  if (loading_.load()) return kLoading;
+  if (draining_.load()) return kDraining;
+  return grpc::Status::OK;
+}
+
+grpc::ServerUnaryReactor* BellwetherService::Checkpoint(grpc::CallbackServerContext* context,
+                                                        const v1::CheckpointRequest*,
+                                                        v1::CheckpointResponse* response) {
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (checkpointer_ == nullptr) {
+    return Done(context, grpc::Status(grpc::StatusCode::FAILED_PRECONDITION,
+                                      "bellwetherd runs without --state-dir: nothing to "
+                                      "checkpoint"));
+  }
+  auto done = checkpointer_->CheckpointNow();
+  if (!done.ok()) return Done(context, ToGrpc(done.status()));
+  *response = *std::move(done);
+  return Done(context, grpc::Status::OK);
+}
+
 void BellwetherService::StartDraining() {
   draining_.store(true);
   absl::MutexLock lock(&calls_mu_);
@@ -474,7 +501,7 @@ bool BellwetherService::WaitForStreamsToEnd(absl::Time deadline) {
 grpc::ServerUnaryReactor* BellwetherService::ApplyPool(grpc::CallbackServerContext* context,
                                                        const v1::ApplyPoolRequest* request,
                                                        v1::ApplyPoolResponse* response) {
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (Expired(context)) return Done(context, kExpired);
   if (!request->has_spec()) {
     return Done(context, grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, "spec: required"));
@@ -488,7 +515,7 @@ grpc::ServerUnaryReactor* BellwetherService::ApplyPool(grpc::CallbackServerConte
 grpc::ServerUnaryReactor* BellwetherService::DescribePool(grpc::CallbackServerContext* context,
                                                           const v1::DescribePoolRequest* request,
                                                           v1::PoolDescription* response) {
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (auto s = RequirePool(request->pool(), "pool"); !s.ok()) return Done(context, ToGrpc(s));
   auto worker = registry_->Find(request->pool());
   if (!worker.ok()) return Done(context, ToGrpc(worker.status()));
@@ -499,7 +526,7 @@ grpc::ServerUnaryReactor* BellwetherService::DescribePool(grpc::CallbackServerCo
 grpc::ServerUnaryReactor* BellwetherService::ListPools(grpc::CallbackServerContext* context,
                                                        const v1::ListPoolsRequest*,
                                                        v1::ListPoolsResponse* response) {
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   for (const auto& worker : registry_->All()) {
     const auto g = worker->current();
     v1::PoolSummary* p = response->add_pools();
@@ -514,7 +541,7 @@ grpc::ServerUnaryReactor* BellwetherService::ListPools(grpc::CallbackServerConte
 grpc::ServerUnaryReactor* BellwetherService::DeletePool(grpc::CallbackServerContext* context,
                                                         const v1::DeletePoolRequest* request,
                                                         v1::DeletePoolResponse*) {
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (Expired(context)) return Done(context, kExpired);
   if (auto s = RequirePool(request->pool(), "pool"); !s.ok()) return Done(context, ToGrpc(s));
   return Done(context, ToGrpc(registry_->Delete(request->pool())));
@@ -567,7 +594,7 @@ grpc::ServerUnaryReactor* BellwetherService::Predict(grpc::CallbackServerContext
                                                      const v1::PredictRequest* request,
                                                      v1::StreamPredictions* response) {
   const auto start = std::chrono::steady_clock::now();
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (Expired(context)) return Done(context, kExpired);
   const absl::Status s = ReadPredictions(*request, response);
   if (metrics_ != nullptr) metrics_->ObserveRead("Predict", SecondsSince(start));
@@ -578,7 +605,7 @@ grpc::ServerUnaryReactor* BellwetherService::PredictBatch(grpc::CallbackServerCo
                                                           const v1::PredictBatchRequest* request,
                                                           v1::PredictBatchResponse* response) {
   const auto start = std::chrono::steady_clock::now();
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (Expired(context)) return Done(context, kExpired);
   if (request->requests_size() > kMaxBatchItems) {
     return Done(context, grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
@@ -606,7 +633,7 @@ grpc::ServerUnaryReactor* BellwetherService::Progress(grpc::CallbackServerContex
                                                       const v1::ProgressRequest* request,
                                                       v1::ProgressResponse* response) {
   const auto start = std::chrono::steady_clock::now();
-  if (draining()) return Done(context, kDraining);
+  if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
   if (Expired(context)) return Done(context, kExpired);
   const absl::Status s = ReadProgress(*request, response);
   if (metrics_ != nullptr) metrics_->ObserveRead("Progress", SecondsSince(start));

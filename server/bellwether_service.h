@@ -13,6 +13,7 @@
 #include "absl/synchronization/mutex.h"
 #include "absl/time/time.h"
 #include "bellwether/v1/service.grpc.pb.h"
+#include "server/checkpointer.h"
 #include "server/daemon_metrics.h"
 #include "server/pool_registry.h"
 
@@ -45,6 +46,10 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   // queued batches are applied (or at once when idle); watches end.
   void StartDraining();
   bool draining() const { return draining_.load(); }
+  // While loading (recovery), every call fails with UNAVAILABLE.
+  void SetLoading(bool loading) { loading_.store(loading); }
+  // Serves the Checkpoint RPC (null: FAILED_PRECONDITION). Set before serving.
+  void SetCheckpointer(Checkpointer* c) { checkpointer_ = c; }
   // Waits until every ingest and watch call has ended, or `deadline`. True if all ended.
   bool WaitForStreamsToEnd(absl::Time deadline);
 
@@ -73,6 +78,9 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   grpc::ServerUnaryReactor* Progress(grpc::CallbackServerContext* context,
                                      const v1::ProgressRequest* request,
                                      v1::ProgressResponse* response) override;
+  grpc::ServerUnaryReactor* Checkpoint(grpc::CallbackServerContext* context,
+                                       const v1::CheckpointRequest* request,
+                                       v1::CheckpointResponse* response) override;
 
   // The answers of one stream (filtered), as Predict gives them. Thread-safe.
   absl::Status ReadPredictions(const v1::PredictRequest& request, v1::StreamPredictions* out) const;
@@ -95,6 +103,10 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   DaemonMetrics* const metrics_;
   const Options options_;
   std::atomic<bool> draining_{false};
+  std::atomic<bool> loading_{false};
+  Checkpointer* checkpointer_ = nullptr;
+  // UNAVAILABLE while loading or draining, else OK.
+  grpc::Status Gate() const;
 
   mutable absl::Mutex calls_mu_;
   absl::flat_hash_set<IngestReactor*> ingests_ ABSL_GUARDED_BY(calls_mu_);

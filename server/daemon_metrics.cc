@@ -63,6 +63,10 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
                    .Name("bellwether_ingest_batches_refused_total")
                    .Help("Whole frame batches turned away (nothing of them applied), by reason")
                    .Register(*registry_)),
+      duplicate_(prometheus::BuildCounter()
+                     .Name("bellwether_frames_duplicate_total")
+                     .Help("Resent frames at or below the stream's applied seq, skipped")
+                     .Register(*registry_)),
       read_seconds_(prometheus::BuildHistogram()
                         .Name("bellwether_predict_seconds")
                         .Help("Time to answer a read RPC (Predict, PredictBatch, Progress)")
@@ -77,6 +81,21 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
       .Register(*registry_)
       .Add({{"version", version}})
       .Set(1);
+  recovery_seconds_ = &prometheus::BuildGauge()
+                           .Name("bellwether_recovery_seconds")
+                           .Help("Time loading the checkpoint and replaying the log took at start")
+                           .Register(*registry_)
+                           .Add({});
+  recovery_records_ = &prometheus::BuildGauge()
+                           .Name("bellwether_recovery_log_records")
+                           .Help("Write-ahead log records replayed at start")
+                           .Register(*registry_)
+                           .Add({});
+  recovery_frames_ = &prometheus::BuildGauge()
+                          .Name("bellwether_recovery_frames")
+                          .Help("Frames replayed from the write-ahead log at start")
+                          .Register(*registry_)
+                          .Add({});
   prometheus::BuildGauge()
       .Name("bellwether_start_time_seconds")
       .Help("Unix time the daemon started, in seconds")
@@ -85,9 +104,15 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
       .Set(static_cast<double>(absl::ToUnixMicros(absl::Now())) / 1e6);
 }
 
+void DaemonMetrics::SetRecovery(double seconds, double records, double frames) {
+  recovery_seconds_->Set(seconds);
+  recovery_records_->Set(records);
+  recovery_frames_->Set(frames);
+}
+
 std::shared_ptr<PoolMetrics> DaemonMetrics::NewPoolMetrics(const std::string& pool) {
   return std::make_shared<PoolMetrics>(pool, received_, applied_, rejected_, batch_seconds_,
-                                       refused_);
+                                       refused_, duplicate_);
 }
 
 void DaemonMetrics::ObserveRead(const std::string& method, double seconds) {

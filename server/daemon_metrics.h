@@ -4,13 +4,17 @@
 //
 //   bellwether_build_info{version}                    1
 //   bellwether_start_time_seconds                     Unix time the daemon started
+//   bellwether_recovery_seconds, bellwether_recovery_log_records,
+//   bellwether_recovery_frames                        what loading the state took at start
 //   bellwether_frames_received_total{pool}            frames in batches handed to a pool
 //   bellwether_frames_applied_total{pool}
+//   bellwether_frames_duplicate_total{pool}           resent frames at or below the applied
+//                                                     seq: skipped, not learned twice
 //   bellwether_frames_rejected_total{pool,reason}     reason: seq, values, missing, action,
 //                                                     behavior_prob, time, other
 //   bellwether_ingest_batches_refused_total{pool,reason}  whole batches turned away:
 //                                                     queue_full, pool_deleted,
-//                                                     pool_changed, draining
+//                                                     pool_changed, draining, disk_full
 //   bellwether_batch_apply_seconds{pool}              histogram: one batch in the writer
 //   bellwether_predict_seconds{method}                histogram: Predict / PredictBatch /
 //                                                     Progress handling time
@@ -54,6 +58,9 @@ class DaemonMetrics {
   // Records the handling time of a read RPC.
   void ObserveRead(const std::string& method, double seconds);
 
+  // What recovery did at start: its duration, log records and frames replayed.
+  void SetRecovery(double seconds, double records, double frames);
+
   // Where scrape-time gauges come from; set once before serving.
   void SetPoolSource(const PoolRegistry* registry) { pools_.store(registry); }
 
@@ -68,7 +75,11 @@ class DaemonMetrics {
   prometheus::Family<prometheus::Counter>& rejected_;
   prometheus::Family<prometheus::Histogram>& batch_seconds_;
   prometheus::Family<prometheus::Counter>& refused_;
+  prometheus::Family<prometheus::Counter>& duplicate_;
   prometheus::Family<prometheus::Histogram>& read_seconds_;
+  prometheus::Gauge* recovery_seconds_;
+  prometheus::Gauge* recovery_records_;
+  prometheus::Gauge* recovery_frames_;
   prometheus::Histogram* predict_;
   prometheus::Histogram* predict_batch_;
   prometheus::Histogram* progress_;

@@ -26,13 +26,26 @@
 #include "server/status_http.h"
 #include "server/http_server.h"
 #include "server/daemon_metrics.h"
+#include "server/checkpointer.h"
+#include "server/state_dir.h"
+#include "server/wal.h"
+#include <atomic>
 
 ABSL_FLAG(std::string, listen, "127.0.0.1:50151",
           "gRPC address HOST:PORT; port 0 picks a free port (the bound address is printed as "
           "'listening on HOST:PORT')");
 ABSL_FLAG(std::string, state_dir, "",
-          "Directory for the daemon's state (created if absent). Pools are held in memory in "
-          "this version; the directory is reserved for the write-ahead log and checkpoints.");
+          "Directory for the write-ahead log and checkpoints (created if absent). Empty: pools "
+          "live in memory only and are lost at exit.");
+ABSL_FLAG(std::string, sync, "batch",
+          "batch: acknowledge a frame batch once its log record is fdatasync'ed (a crash of the "
+          "process or machine loses nothing acknowledged); none: once written to the kernel (a "
+          "process crash loses nothing, a power loss can lose the last seconds)");
+ABSL_FLAG(double, checkpoint_seconds, 300, "Checkpoint every this many seconds (with --state-dir)");
+ABSL_FLAG(int64_t, checkpoint_frames, 1000000,
+          "Checkpoint sooner once this many frames were applied since the last one");
+ABSL_FLAG(int64_t, testing_wal_fail_after_bytes, 0,
+          "Testing only: the log refuses appends (as on a full disk) after this many bytes");
 ABSL_FLAG(double, shutdown_grace_seconds, 5.0,
           "On SIGTERM/SIGINT, seconds in-flight calls get to finish before they are cancelled");
 ABSL_FLAG(std::string, http, "",
@@ -89,11 +102,14 @@ int Main(int argc, char** argv) {
   pthread_sigmask(SIG_BLOCK, &stop_signals, nullptr);
 
   const std::string state_dir = absl::GetFlag(FLAGS_state_dir);
+  const std::string sync = absl::GetFlag(FLAGS_sync);
+  if (sync != "batch" && sync != "none") {
+    std::cerr << "bellwetherd: --sync " << sync << ": expected batch or none\n";
+    return 1;
+  }
   if (!state_dir.empty()) {
-    std::error_code ec;
-    std::filesystem::create_directories(state_dir, ec);
-    if (ec) {
-      std::cerr << "bellwetherd: --state-dir " << state_dir << ": " << ec.message() << "\n";
+    if (absl::Status s = bellwether::server::PrepareStateDir(state_dir); !s.ok()) {
+      std::cerr << "bellwetherd: " << s.message() << "\n";
       return 1;
     }
   }
@@ -125,6 +141,9 @@ int Main(int argc, char** argv) {
   worker_options.queue_capacity = static_cast<size_t>(absl::GetFlag(FLAGS_queue_batches));
   worker_options.history_streams = static_cast<size_t>(absl::GetFlag(FLAGS_history_streams));
   worker_options.history_points = static_cast<size_t>(absl::GetFlag(FLAGS_history_points));
+  std::atomic<uint64_t> frames_applied{0};
+  worker_options.frames_applied_total = &frames_applied;
+  std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it
   bws::PoolRegistry registry(&metrics, worker_options);
   metrics.SetPoolSource(&registry);
   bws::BellwetherService service(&registry, &metrics, bws::BellwetherService::Options());
@@ -153,8 +172,55 @@ int Main(int argc, char** argv) {
     std::cout << "http on " << http_addr.substr(0, http_addr.rfind(':')) << ":" << http->port()
               << std::endl;
   }
-  // Loaded and ready (pools are in memory; nothing to load yet).
+  // Load the state (health NOT_SERVING and every call UNAVAILABLE meanwhile).
+  std::unique_ptr<bws::Checkpointer> checkpointer;
+  if (!state_dir.empty()) {
+    server->GetHealthCheckService()->SetServingStatus(false);
+    service.SetLoading(true);
+    const auto start = absl::Now();
+    auto recovered = bws::Recover(state_dir);
+    if (!recovered.ok()) {
+      std::cerr << "bellwetherd: cannot load --state-dir " << state_dir << ": "
+                << recovered.status().message() << "\n";
+      server->Shutdown();
+      return 1;
+    }
+    for (const std::string& w : recovered->warnings) {
+      std::cerr << "bellwetherd: WARNING: " << w << "\n";
+    }
+    bws::Wal::Options wal_options;
+    wal_options.dir = state_dir;
+    wal_options.sync = sync == "none" ? bws::Wal::Sync::kNone : bws::Wal::Sync::kBatch;
+    wal_options.fail_after_bytes =
+        static_cast<uint64_t>(std::max<int64_t>(0, absl::GetFlag(FLAGS_testing_wal_fail_after_bytes)));
+    auto opened = bws::Wal::Open(wal_options, recovered->next_lsn);
+    if (!opened.ok()) {
+      std::cerr << "bellwetherd: " << opened.status().message() << "\n";
+      server->Shutdown();
+      return 1;
+    }
+    wal = *std::move(opened);
+    registry.SetWal(wal.get());
+    const size_t pools = recovered->pools.size();
+    registry.Adopt(std::move(recovered->pools));
+    const double seconds = absl::ToDoubleSeconds(absl::Now() - start);
+    metrics.SetRecovery(seconds, static_cast<double>(recovered->records_replayed),
+                        static_cast<double>(recovered->frames_replayed));
+    std::cerr << "bellwetherd: loaded " << pools << " pools ("
+              << (recovered->checkpoint_file.empty() ? std::string("no checkpoint")
+                                                     : recovered->checkpoint_file)
+              << ", " << recovered->records_replayed << " log records replayed) in " << seconds
+              << " s\n";
+    bws::Checkpointer::Options copt;
+    copt.dir = state_dir;
+    copt.interval = absl::Seconds(absl::GetFlag(FLAGS_checkpoint_seconds));
+    copt.frames = static_cast<uint64_t>(std::max<int64_t>(1, absl::GetFlag(FLAGS_checkpoint_frames)));
+    checkpointer = std::make_unique<bws::Checkpointer>(&registry, wal.get(), &frames_applied, copt);
+    service.SetCheckpointer(checkpointer.get());
+    service.SetLoading(false);
+  }
   server->GetHealthCheckService()->SetServingStatus(true);
+  std::cout << "ready" << std::endl;
   std::cerr << "bellwetherd: serving; predictions are advisory, not a safety system\n";
 
   std::thread waiter([&] {
@@ -175,6 +241,15 @@ int Main(int argc, char** argv) {
   server->Wait();
   waiter.join();
   http.reset();
+  if (checkpointer != nullptr) {
+    // Clean shutdown: a final checkpoint, so the next start replays nothing.
+    auto done = checkpointer->CheckpointNow();
+    if (!done.ok()) {
+      std::cerr << "bellwetherd: final checkpoint failed (the log still has everything): "
+                << done.status().message() << "\n";
+    }
+    checkpointer.reset();
+  }
   std::cerr << "bellwetherd: stopped\n";
   return 0;
 }

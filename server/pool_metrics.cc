@@ -16,13 +16,16 @@ PoolMetrics::PoolMetrics(std::string pool, prometheus::Family<prometheus::Counte
                          prometheus::Family<prometheus::Counter>& applied,
                          prometheus::Family<prometheus::Counter>& rejected,
                          prometheus::Family<prometheus::Histogram>& batch_seconds,
-                         prometheus::Family<prometheus::Counter>& refused)
+                         prometheus::Family<prometheus::Counter>& refused,
+                         prometheus::Family<prometheus::Counter>& duplicate)
     : pool_(std::move(pool)),
       received_family_(received),
       applied_family_(applied),
       rejected_family_(rejected),
       batch_family_(batch_seconds),
       refused_family_(refused),
+      duplicate_family_(duplicate),
+      duplicate_(&duplicate.Add({{"pool", pool_}})),
       received_(&received.Add({{"pool", pool_}})),
       applied_(&applied.Add({{"pool", pool_}})),
       batch_seconds_(&batch_seconds.Add({{"pool", pool_}}, BatchBuckets())) {
@@ -32,7 +35,8 @@ PoolMetrics::PoolMetrics(std::string pool, prometheus::Family<prometheus::Counte
                              "other"}) {
     rejected_[reason] = &rejected_family_.Add({{"pool", pool_}, {"reason", reason}});
   }
-  for (const char* reason : {"queue_full", "pool_deleted", "pool_changed", "draining"}) {
+  for (const char* reason :
+       {"queue_full", "pool_deleted", "pool_changed", "draining", "disk_full"}) {
     refused_[reason] = &refused_family_.Add({{"pool", pool_}, {"reason", reason}});
   }
 }
@@ -41,6 +45,7 @@ PoolMetrics::~PoolMetrics() {
   received_family_.Remove(received_);
   applied_family_.Remove(applied_);
   batch_family_.Remove(batch_seconds_);
+  duplicate_family_.Remove(duplicate_);
   absl::MutexLock lock(&mu_);
   for (auto& [reason, counter] : rejected_) rejected_family_.Remove(counter);
   for (auto& [reason, counter] : refused_) refused_family_.Remove(counter);

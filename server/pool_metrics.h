@@ -20,16 +20,19 @@ class PoolMetrics {
               prometheus::Family<prometheus::Counter>& applied,
               prometheus::Family<prometheus::Counter>& rejected,
               prometheus::Family<prometheus::Histogram>& batch_seconds,
-              prometheus::Family<prometheus::Counter>& refused);
+              prometheus::Family<prometheus::Counter>& refused,
+              prometheus::Family<prometheus::Counter>& duplicate);
   // Removes this pool's series from the families.
   ~PoolMetrics();
 
   void FramesReceived(double n) { received_->Increment(n); }
   void FramesApplied(double n) { applied_->Increment(n); }
+  void FramesDuplicate(double n) { duplicate_->Increment(n); }
   // `reason`: one of RejectionReason()'s labels.
   void FrameRejected(const std::string& reason);
   void BatchApplied(double seconds) { batch_seconds_->Observe(seconds); }
-  // A whole batch turned away; `reason`: queue_full, pool_deleted, pool_changed, draining.
+  // A whole batch turned away; `reason`: queue_full, pool_deleted, pool_changed, draining,
+  // disk_full.
   void BatchRefused(const std::string& reason);
 
  private:
@@ -39,6 +42,8 @@ class PoolMetrics {
   prometheus::Family<prometheus::Counter>& rejected_family_;
   prometheus::Family<prometheus::Histogram>& batch_family_;
   prometheus::Family<prometheus::Counter>& refused_family_;
+  prometheus::Family<prometheus::Counter>& duplicate_family_;
+  prometheus::Counter* duplicate_;
   prometheus::Counter* received_;
   prometheus::Counter* applied_;
   prometheus::Histogram* batch_seconds_;

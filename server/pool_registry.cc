@@ -32,9 +32,15 @@ absl::StatusOr<v1::ApplyPoolResponse> PoolRegistry::Apply(const v1::PoolSpec& sp
       response.set_created(true);
       for (const v1::QuestionSpec& q : spec.questions()) response.add_added(q.name());
       if (!dry_run) {
+        uint64_t lsn = 0;
+        if (options_.wal != nullptr) {
+          v1::WalRecord rec;
+          *rec.mutable_apply() = spec;
+          BW_ASSIGN_OR_RETURN(lsn, options_.wal->Append(rec));
+        }
         PoolWorker::Options o = options_;
         if (metrics_ != nullptr) o.metrics = metrics_->NewPoolMetrics(spec.name());
-        pools_.emplace(spec.name(), std::make_shared<PoolWorker>(std::move(pool), o));
+        pools_.emplace(spec.name(), std::make_shared<PoolWorker>(std::move(pool), o, 1, lsn));
       }
       return response;
     }
@@ -70,6 +76,11 @@ absl::Status PoolRegistry::Delete(const std::string& name) {
     absl::MutexLock lock(&mu_);
     auto it = pools_.find(name);
     if (it == pools_.end()) return absl::NotFoundError(absl::StrCat("pool '", name, "' not found"));
+    if (options_.wal != nullptr) {
+      v1::WalRecord rec;
+      rec.set_delete_pool(name);
+      BW_RETURN_IF_ERROR(options_.wal->Append(rec).status());
+    }
     dropped = std::move(it->second);
     pools_.erase(it);
   }
@@ -84,6 +95,24 @@ std::vector<std::shared_ptr<PoolWorker>> PoolRegistry::All() const {
   absl::MutexLock lock(&mu_);
   for (const auto& [name, w] : pools_) out.push_back(w);
   return out;
+}
+
+std::vector<std::shared_ptr<PoolWorker>> PoolRegistry::AllForCheckpoint(
+    uint64_t* start_lsn) const {
+  std::vector<std::shared_ptr<PoolWorker>> out;
+  absl::MutexLock lock(&mu_);
+  *start_lsn = options_.wal != nullptr ? options_.wal->last_lsn() : 0;
+  for (const auto& [name, w] : pools_) out.push_back(w);
+  return out;
+}
+
+void PoolRegistry::Adopt(std::map<std::string, RecoveredPool> pools) {
+  absl::MutexLock lock(&mu_);
+  for (auto& [name, p] : pools) {
+    PoolWorker::Options o = options_;
+    if (metrics_ != nullptr) o.metrics = metrics_->NewPoolMetrics(name);
+    pools_[name] = std::make_shared<PoolWorker>(std::move(p.pool), o, p.generation, p.last_lsn);
+  }
 }
 
 v1::PoolDescription PoolRegistry::Describe(const PoolWorker& worker) {

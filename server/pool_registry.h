@@ -14,6 +14,7 @@
 #include "bellwether/v1/service.pb.h"
 #include "server/daemon_metrics.h"
 #include "server/pool_worker.h"
+#include "server/state_dir.h"
 
 namespace bellwether::server {
 
@@ -42,6 +43,16 @@ class PoolRegistry {
   // Every pool's worker, in name order.
   std::vector<std::shared_ptr<PoolWorker>> All() const;
 
+  // Every pool's worker and the log's last LSN, read together (no pool is created or
+  // deleted in between): what a checkpoint must capture.
+  std::vector<std::shared_ptr<PoolWorker>> AllForCheckpoint(uint64_t* start_lsn) const;
+
+  // Logs pool changes and batches to `wal` from now on (set before serving).
+  void SetWal(Wal* wal) { options_.wal = wal; }
+
+  // Takes the pools recovery rebuilt (before serving).
+  void Adopt(std::map<std::string, RecoveredPool> pools);
+
   // The pool's description (spec, generation, streams, per-question label counts).
   static v1::PoolDescription Describe(const PoolWorker& worker);
 
@@ -49,7 +60,7 @@ class PoolRegistry {
 
  private:
   DaemonMetrics* const metrics_;
-  const PoolWorker::Options options_;
+  PoolWorker::Options options_;
   mutable absl::Mutex mu_;
   std::map<std::string, std::shared_ptr<PoolWorker>> pools_ ABSL_GUARDED_BY(mu_);
 };

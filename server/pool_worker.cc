@@ -6,6 +6,7 @@
 
 #include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
+#include "absl/time/clock.h"
 
 namespace bellwether::server {
 
@@ -27,9 +28,15 @@ std::string RejectionReason(absl::string_view message) {
   return "other";
 }
 
-PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options)
-    : name_(pool->name()), options_(options), pool_(std::move(pool)) {
-  generation_ = MakeGeneration(1);
+PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation,
+                       uint64_t last_lsn)
+    : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {
+  generation_ = MakeGeneration(generation);
+  for (const std::string& stream : pool_->stream_names()) {
+    // Recovered streams: everything applied came from the log, so it is durable.
+    durable_seq_[stream] = pool_->last_seq(stream);
+    Publish(stream);
+  }
   InstallSink();
   thread_ = std::thread([this] { Run(); });
 }
@@ -40,6 +47,8 @@ PoolWorker::~PoolWorker() {
     stopping_ = true;
   }
   thread_.join();
+  // Batch callbacks still waiting for the log's flusher touch this worker: let them run.
+  while (pending_durable_.load() > 0) absl::SleepFor(absl::Milliseconds(1));
 }
 
 std::shared_ptr<PoolWorker::Generation> PoolWorker::MakeGeneration(uint64_t id) const {
@@ -119,24 +128,47 @@ PoolWorker::BatchResult PoolWorker::ApplyBatch(const std::string& stream,
   return result;
 }
 
-absl::Status PoolWorker::Replace(const v1::PoolSpec& spec) {
-  absl::Status status;
-  bool done = false;
+void PoolWorker::RunBlocking(Task task, bool* done) {
   absl::MutexLock lock(&queue_mu_);
-  // A spec change waits for room rather than failing: it is rare and small.
+  // Spec changes and captures wait for room rather than failing: they are rare.
   queue_mu_.Await(absl::Condition(
       +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->queue_mu_) {
         return w->queue_.size() < w->options_.queue_capacity;
       },
       this));
+  task.replace_done = done;
+  queue_.push_back(std::move(task));
+  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+  queue_mu_.Await(absl::Condition(done));
+}
+
+absl::Status PoolWorker::Replace(const v1::PoolSpec& spec) {
+  absl::Status status;
+  bool done = false;
   Task t;
   t.replace = &spec;
   t.replace_status = &status;
-  t.replace_done = &done;
-  queue_.push_back(std::move(t));
-  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
-  queue_mu_.Await(absl::Condition(&done));
+  RunBlocking(std::move(t), &done);
   return status;
+}
+
+absl::StatusOr<v1::PoolCheckpoint> PoolWorker::Capture() {
+  if (deleted_.load()) return absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
+  v1::PoolCheckpoint c;
+  absl::Status status;
+  bool done = false;
+  Task t;
+  t.capture = &c;
+  t.replace_status = &status;
+  RunBlocking(std::move(t), &done);
+  if (!status.ok()) return status;
+  return c;
+}
+
+uint64_t PoolWorker::DurableSeq(const std::string& stream) const {
+  absl::MutexLock lock(&durable_mu_);
+  auto it = durable_seq_.find(stream);
+  return it == durable_seq_.end() ? 0 : it->second;
 }
 
 void PoolWorker::MarkDeleted() { deleted_.store(true); }
@@ -192,7 +224,18 @@ void PoolWorker::Run() {
       queue_.pop_front();
       queue_depth_.store(queue_.size(), std::memory_order_relaxed);
     }
-    if (task.replace != nullptr) {
+    if (task.capture != nullptr) {
+      if (deleted_.load()) {
+        *task.replace_status = absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
+      } else {
+        *task.capture->mutable_spec() = pool_->spec().proto;
+        task.capture->set_generation(current()->id);
+        task.capture->set_wal_lsn(last_lsn_);
+        pool_->SaveState(task.capture->mutable_state());
+      }
+      absl::MutexLock lock(&queue_mu_);
+      *task.replace_done = true;
+    } else if (task.replace != nullptr) {
       ReplaceTask(task);
       absl::MutexLock lock(&queue_mu_);
       *task.replace_done = true;
@@ -207,6 +250,16 @@ void PoolWorker::ReplaceTask(Task& task) {
   if (!next.ok()) {
     *task.replace_status = next.status();
     return;
+  }
+  if (options_.wal != nullptr) {
+    v1::WalRecord rec;
+    *rec.mutable_apply() = *task.replace;
+    auto lsn = options_.wal->Append(rec);
+    if (!lsn.ok()) {
+      *task.replace_status = lsn.status();
+      return;
+    }
+    last_lsn_ = *lsn;
   }
   pool_ = std::move(*next);
   InstallSink();
@@ -252,6 +305,27 @@ void PoolWorker::ApplyTask(Task& task) {
   }
   const std::string& stream = *t.stream;
   PoolMetrics* m = options_.metrics.get();
+  // Log first: a batch is applied only once its record is in the log.
+  uint64_t lsn = 0;
+  if (r.status.ok() && options_.wal != nullptr) {
+    v1::WalRecord rec;
+    v1::WalBatch* b = rec.mutable_batch();
+    b->set_pool(name_);
+    b->set_stream(stream);
+    for (size_t c = 0; c < t.columns->num_columns(); ++c) b->add_columns(t.columns->column_name(c));
+    *b->mutable_batch() = *t.batch;
+    auto appended = options_.wal->Append(rec);
+    if (!appended.ok()) {
+      if (m != nullptr) m->BatchRefused("disk_full");
+      r.status = appended.status();
+      r.applied_seq = pool_->last_seq(stream);
+      r.durable_seq = DurableSeq(stream);
+      t.done(std::move(r));
+      return;
+    }
+    lsn = *appended;
+    last_lsn_ = lsn;
+  }
   if (!r.status.ok()) {
     if (m != nullptr) {
       m->BatchRefused(r.status.code() == absl::StatusCode::kNotFound ? "pool_deleted"
@@ -283,6 +357,10 @@ void PoolWorker::ApplyTask(Task& task) {
   uint64_t next_sample_seq = 0;
   for (int i = 0; i < t.batch->frames_size(); ++i) {
     const v1::Frame& frame = t.batch->frames(i);
+    if (frame.seq() != 0 && frame.seq() <= pool_->last_seq(stream)) {
+      ++r.duplicates;  // a resend after a reconnect: already learned from
+      continue;
+    }
     absl::Status s = FrameFromProto(frame, *t.columns, &values_, &input);
     if (s.ok()) s = pool_->Apply(stream, input);
     if (s.ok() && keep_history && input.seq >= next_sample_seq) {
@@ -325,7 +403,28 @@ void PoolWorker::ApplyTask(Task& task) {
       r.predictions = std::shared_ptr<const v1::StreamPredictions>(snap, &snap->predictions);
     }
   }
-  t.done(std::move(r));
+  if (options_.frames_applied_total != nullptr) {
+    options_.frames_applied_total->fetch_add(r.frames_applied, std::memory_order_relaxed);
+  }
+  if (m != nullptr && r.duplicates > 0) m->FramesDuplicate(static_cast<double>(r.duplicates));
+  if (options_.wal == nullptr) {
+    r.durable_seq = 0;
+    t.done(std::move(r));
+    return;
+  }
+  // Acknowledge once the record is on disk (at once with --sync=none).
+  pending_durable_.fetch_add(1);
+  options_.wal->WhenDurable(
+      lsn, [this, done = std::move(t.done), r = std::move(r), stream]() mutable {
+        r.durable_seq = r.applied_seq;
+        {
+          absl::MutexLock lock(&durable_mu_);
+          uint64_t& d = durable_seq_[stream];
+          d = std::max(d, r.applied_seq);
+        }
+        done(std::move(r));
+        pending_durable_.fetch_sub(1);
+      });
 }
 
 }  // namespace bellwether::server

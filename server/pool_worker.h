@@ -28,6 +28,8 @@
 #include "core/pool.h"
 #include "server/pool_metrics.h"
 #include "server/stream_history.h"
+#include "server/wal.h"
+#include "bellwether/v1/state.pb.h"
 
 namespace bellwether::server {
 
@@ -44,6 +46,10 @@ class PoolWorker {
     size_t history_points = StreamHistory::kDefaultPoints;
     // Metrics sink; may be null (tests). Its series go when the worker goes.
     std::shared_ptr<PoolMetrics> metrics;
+    // The write-ahead log (null: no durability). Must outlive the worker.
+    Wal* wal = nullptr;
+    // Counts applied frames across the daemon (for checkpoint scheduling); may be null.
+    std::atomic<uint64_t>* frames_applied_total = nullptr;
   };
 
   // The outcome of one batch.
@@ -53,6 +59,10 @@ class PoolWorker {
     absl::Status status;
     uint64_t applied_seq = 0;     // the stream's last applied seq after the batch
     uint64_t frames_applied = 0;  // frames of this batch applied
+    uint64_t duplicates = 0;      // frames at or below the stream's applied seq, skipped
+    // The stream's last seq whose frames are on disk (equal to applied_seq once the
+    // batch's log record is durable, which is when the callback runs; 0 without a log).
+    uint64_t durable_seq = 0;
     std::vector<v1::FrameRejection> rejected;
     // The stream's answers after the batch (when asked for and any frame applied).
     std::shared_ptr<const v1::StreamPredictions> predictions;
@@ -75,8 +85,10 @@ class PoolWorker {
     std::vector<std::string> question_units;
   };
 
-  // Takes ownership of `pool` and starts the writer thread.
-  PoolWorker(std::unique_ptr<Pool> pool, Options options);
+  // Takes ownership of `pool` and starts the writer thread. `generation` and `last_lsn`
+  // continue a recovered pool's.
+  PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation = 1,
+             uint64_t last_lsn = 0);
   // Applies every queued task, then stops the thread. Must not run on the writer thread.
   ~PoolWorker();
 
@@ -114,6 +126,13 @@ class PoolWorker {
   // rather than failing. On error nothing changes. Thread-safe.
   absl::Status Replace(const v1::PoolSpec& spec);
 
+  // A checkpoint of the pool taken between batches (spec, generation, state and the last
+  // log LSN it includes). Waits for room in the queue. NOT_FOUND if the pool was deleted.
+  absl::StatusOr<v1::PoolCheckpoint> Capture();
+
+  // The stream's last seq on disk (its applied seq when there is no log).
+  uint64_t DurableSeq(const std::string& stream) const;
+
   // Refuses every later batch with NOT_FOUND (the registry dropped the pool). Queued
   // batches are refused too. Thread-safe.
   void MarkDeleted();
@@ -139,9 +158,12 @@ class PoolWorker {
   struct Task {
     BatchTask batch;
     const v1::PoolSpec* replace = nullptr;  // a spec change instead of a batch
+    v1::PoolCheckpoint* capture = nullptr;  // a checkpoint instead of a batch
     absl::Status* replace_status = nullptr;
     bool* replace_done = nullptr;
   };
+  // Queues a spec change or capture and waits for it.
+  void RunBlocking(Task task, bool* done);
 
   void Run();
   void ApplyTask(Task& task);
@@ -184,6 +206,11 @@ class PoolWorker {
   mutable absl::Mutex history_mu_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamHistory>> history_
       ABSL_GUARDED_BY(history_mu_);
+
+  uint64_t last_lsn_ = 0;  // writer thread
+  std::atomic<int64_t> pending_durable_{0};  // batch callbacks waiting for the log
+  mutable absl::Mutex durable_mu_;
+  absl::flat_hash_map<std::string, uint64_t> durable_seq_ ABSL_GUARDED_BY(durable_mu_);
 
   std::vector<double> values_;
   v1::StreamPredictions sample_scratch_;  // progress samples (reused: no allocation)

@@ -190,7 +190,7 @@ int Stream(const Args& args) {
   auto session = client->OpenIngest(pool->second, stream->second, (*reader)->signal_columns());
   if (!session.ok()) return ServerError(session.status());
   v1::FrameBatch batch;
-  uint64_t sent = 0, applied_seq = 0, rejected = 0;
+  uint64_t sent = 0, applied_seq = 0, durable_seq = 0, rejected = 0, duplicates = 0;
   constexpr uint64_t kRejectionsShown = 5;
   auto flush = [&]() -> absl::Status {
     if (batch.frames_size() == 0) return absl::OkStatus();
@@ -198,6 +198,8 @@ int Stream(const Args& args) {
     if (!ack.ok()) return ack.status();
     sent += static_cast<uint64_t>(batch.frames_size());
     applied_seq = ack->applied_seq();
+    durable_seq = ack->durable_seq();
+    duplicates += ack->duplicates();
     for (const v1::FrameRejection& r : ack->rejected()) {
       if (rejected++ < kRejectionsShown) {
         std::cerr << "bellwether: rejected frame seq " << r.seq() << ": " << r.reason() << "\n";
@@ -225,7 +227,13 @@ int Stream(const Args& args) {
   if (auto s = flush(); !s.ok()) return ServerError(s);
   if (auto s = (*session)->Finish(); !s.ok()) return ServerError(s);
   std::cout << "streamed " << sent << " frames to " << pool->second << "/" << stream->second
-            << " (applied seq " << applied_seq << ")\n";
+            << " (applied seq " << applied_seq;
+  if (durable_seq > 0) std::cout << ", durable seq " << durable_seq;
+  std::cout << ")\n";
+  if (duplicates > 0) {
+    std::cout << duplicates << " frames were already applied (seq at or below the stream's) "
+              << "and were skipped\n";
+  }
   if (rejected > 0) {
     std::cerr << "bellwether: " << rejected << " of " << sent << " frames were rejected"
               << (rejected > kRejectionsShown ? " (first 5 shown)" : "") << "\n";

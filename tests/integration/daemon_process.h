@@ -48,6 +48,11 @@ class DaemonProcess {
     if (out == nullptr) return;
     address_ = ReadAddress(out, "listening on ");
     if (http) http_address_ = ReadAddress(out, "http on ");
+    // "ready" follows once the state is loaded and health is SERVING.
+    char line[64] = {};
+    if (std::fgets(line, sizeof(line), out) == nullptr || std::string(line) != "ready\n") {
+      address_.clear();
+    }
     std::fclose(out);
   }
   ~DaemonProcess() {

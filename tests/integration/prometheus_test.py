@@ -8,8 +8,8 @@ demand file, 2688 rows, streamed with the `bellwether` CLI):
     parser and linter, Debian package `prometheus`), and a small parser of our own finds
     the series the daemon documents (server/daemon_metrics.h) with the values the data
     implies: 2688 frames received and applied, one stream, a positive verified RMSE, a
-    consistent histogram; then the same file streamed again is rejected frame by frame
-    (every seq is old) and counted under reason="seq".
+    consistent histogram; then the same file streamed again is skipped frame by frame
+    (every seq is already applied) and counted as duplicates.
   * PrometheusScrape: a real Prometheus server (/usr/bin/prometheus) scrapes the daemon
     every second; its query API must return 2688 for bellwether_frames_applied_total
     {pool="grid"} and its targets API must report the target "up".
@@ -443,25 +443,25 @@ class PromtoolLint(unittest.TestCase):
             self.assertGreater(e.value("bellwether_batch_apply_seconds_sum", pool=POOL), 0)
             print("  %d frame batches applied" % batches)
 
-            # The same file again: every seq is old, so every frame is rejected (exit 3).
+            # The same file again (a producer resending): every seq is already applied, so
+            # every frame is a duplicate, skipped and counted, not rejected (exit 0).
             rc, out = run_cli("--server", daemon.grpc, "stream", "--pool", POOL,
                               "--stream", STREAM, ENV["data"])
-            self.assertEqual(rc, 3, "re-stream should be partial (exit 3):\n" + out)
-            text = self.scrape(daemon, "rejected")
-            self.promtool(text, "after %d rejected frames" % DATA_ROWS)
+            self.assertEqual(rc, 0, "re-stream should skip duplicates (exit 0):\n" + out)
+            text = self.scrape(daemon, "duplicates")
+            self.promtool(text, "after %d duplicate frames" % DATA_ROWS)
             e = Exposition(text)
             self.check_structure(e)
-            self.assertEqual(
-                e.value("bellwether_frames_rejected_total", pool=POOL, reason="seq"), DATA_ROWS)
+            self.assertEqual(e.value("bellwether_frames_duplicate_total", pool=POOL), DATA_ROWS)
             self.assertEqual([l["reason"] for l, v in e.find("bellwether_frames_rejected_total",
-                                                             pool=POOL) if v != 0], ["seq"])
+                                                             pool=POOL) if v != 0], [])
             self.assertEqual(e.value("bellwether_frames_received_total", pool=POOL),
                              2 * DATA_ROWS)
             self.assertEqual(e.value("bellwether_frames_applied_total", pool=POOL), DATA_ROWS)
             self.assertEqual(e.value("bellwether_streams", pool=POOL), 1)
 
             # A partial overlap counts frame by frame: a new stream gets the first 100
-            # rows, then the whole file (100 rejected, the rest applied).
+            # rows, then the whole file (100 duplicates, the rest applied).
             head = os.path.join(self.tmp, "head.csv")
             with open(ENV["data"]) as src, open(head, "w") as dst:
                 for _ in range(101):
@@ -471,11 +471,11 @@ class PromtoolLint(unittest.TestCase):
             self.assertEqual(rc, 0, out)
             rc, out = run_cli("--server", daemon.grpc, "stream", "--pool", POOL,
                               "--stream", "uk-2", ENV["data"])
-            self.assertEqual(rc, 3, out)
+            self.assertEqual(rc, 0, out)
             e = Exposition(self.scrape(daemon, "overlap"))
             self.check_structure(e)
-            self.assertEqual(e.value("bellwether_frames_rejected_total", pool=POOL,
-                                     reason="seq"), DATA_ROWS + 100)
+            self.assertEqual(e.value("bellwether_frames_duplicate_total", pool=POOL),
+                             DATA_ROWS + 100)
             self.assertEqual(e.value("bellwether_frames_applied_total", pool=POOL),
                              2 * DATA_ROWS)
             self.assertEqual(e.value("bellwether_frames_received_total", pool=POOL),

@@ -108,19 +108,22 @@ TEST(PoolWorkerQueue, BadFramesAreRejectedOneByOne) {
   auto columns = ColumnMap::Create(g->signal_names, {});
   ASSERT_TRUE(columns.ok());
   v1::FrameBatch batch = OneFrame(1);
-  *batch.add_frames() = OneFrame(1).frames(0);  // repeated seq
+  *batch.add_frames() = OneFrame(1).frames(0);  // repeated seq: a duplicate, skipped
   *batch.add_frames() = OneFrame(2).frames(0);
   batch.mutable_frames(2)->add_values(3);  // one value too many
   *batch.add_frames() = OneFrame(3).frames(0);
+  batch.mutable_frames(3)->set_seq(0);     // seq must be >= 1
+  *batch.add_frames() = OneFrame(4).frames(0);
   const PoolWorker::BatchResult r = worker->ApplyBatch("s", *columns, g->id, batch);
   ASSERT_TRUE(r.status.ok());
   EXPECT_EQ(r.frames_applied, 2u);
-  EXPECT_EQ(r.applied_seq, 3u);
+  EXPECT_EQ(r.duplicates, 1u);
+  EXPECT_EQ(r.applied_seq, 4u);
   ASSERT_EQ(r.rejected.size(), 2u);
-  EXPECT_EQ(r.rejected[0].index(), 1u);
-  EXPECT_EQ(RejectionReason(r.rejected[0].reason()), "seq");
-  EXPECT_EQ(r.rejected[1].index(), 2u);
-  EXPECT_EQ(RejectionReason(r.rejected[1].reason()), "values");
+  EXPECT_EQ(r.rejected[0].index(), 2u);
+  EXPECT_EQ(RejectionReason(r.rejected[0].reason()), "values");
+  EXPECT_EQ(r.rejected[1].index(), 3u);
+  EXPECT_EQ(RejectionReason(r.rejected[1].reason()), "seq");
   EXPECT_EQ(worker->Snapshot("s")->frames_rejected, 2u);
 }
 
