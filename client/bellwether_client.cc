@@ -201,6 +201,15 @@ absl::Status Client::DeletePool(const std::string& pool, absl::Duration timeout)
   return FromGrpc(stub_->DeletePool(&context, request, &response));
 }
 
+absl::StatusOr<v1::CheckpointResponse> Client::Checkpoint(absl::Duration timeout) {
+  grpc::ClientContext context;
+  SetDeadline(&context, timeout);
+  v1::CheckpointResponse response;
+  const grpc::Status s = stub_->Checkpoint(&context, v1::CheckpointRequest(), &response);
+  if (!s.ok()) return FromGrpc(s);
+  return response;
+}
+
 absl::StatusOr<std::unique_ptr<WatchSession>> Client::Watch(const v1::WatchRequest& request) {
   std::unique_ptr<WatchSession> session(new WatchSession());
   session->context_ = std::make_unique<grpc::ClientContext>();

@@ -109,6 +109,8 @@ class Client {
                                                    absl::Duration timeout = absl::Seconds(10));
   absl::StatusOr<v1::ListPoolsResponse> ListPools(absl::Duration timeout = absl::Seconds(10));
   absl::Status DeletePool(const std::string& pool, absl::Duration timeout = absl::Seconds(10));
+  // Asks the daemon to write a checkpoint now.
+  absl::StatusOr<v1::CheckpointResponse> Checkpoint(absl::Duration timeout = absl::Seconds(60));
   // Opens a Watch call (no deadline; end it with Cancel()).
   absl::StatusOr<std::unique_ptr<WatchSession>> Watch(const v1::WatchRequest& request);
   // OK once the channel is connected, UNAVAILABLE if not within `timeout`.

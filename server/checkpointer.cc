@@ -11,8 +11,10 @@
 namespace bellwether::server {
 
 Checkpointer::Checkpointer(PoolRegistry* registry, Wal* wal,
-                           const std::atomic<uint64_t>* frames_applied, Options options)
+                           const std::atomic<uint64_t>* frames_applied, Options options,
+                           uint64_t loaded_start_lsn)
     : registry_(registry), wal_(wal), frames_applied_(frames_applied), options_(std::move(options)) {
+  previous_start_lsn_ = loaded_start_lsn;
   frames_at_last_ = frames_applied_->load();
   thread_ = std::thread([this] { Loop(); });
 }
@@ -63,8 +65,9 @@ absl::StatusOr<v1::CheckpointResponse> Checkpointer::CheckpointNow() {
   c.set_start_lsn(start_lsn);
   auto bytes = WriteCheckpoint(options_.dir, c);
   if (!bytes.ok()) return bytes.status();
-  // Durable: the log behind it can go.
-  wal_->TrimThrough(start_lsn);
+  // Durable. The log behind the PREVIOUS checkpoint can go (this one's fallback).
+  wal_->TrimThrough(previous_start_lsn_);
+  previous_start_lsn_ = start_lsn;
   frames_at_last_ = frames_before;
   v1::CheckpointResponse r;
   r.set_start_lsn(start_lsn);

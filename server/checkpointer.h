@@ -30,9 +30,11 @@ class Checkpointer {
   };
 
   // `registry`, `wal` and `frames_applied` must outlive the checkpointer. Starts the
-  // periodic thread.
+  // periodic thread. `loaded_start_lsn`: the start LSN of the checkpoint recovery loaded
+  // (0 if none). The log is trimmed only behind the previous checkpoint, so falling back
+  // to it still finds every record it needs.
   Checkpointer(PoolRegistry* registry, Wal* wal, const std::atomic<uint64_t>* frames_applied,
-               Options options);
+               Options options, uint64_t loaded_start_lsn = 0);
   ~Checkpointer();  // stops the thread (no final checkpoint: call CheckpointNow)
 
   // Writes one now. Serialized with the periodic ones. Thread-safe.
@@ -49,6 +51,7 @@ class Checkpointer {
   absl::Mutex mu_;
   bool stop_ ABSL_GUARDED_BY(mu_) = false;
   std::atomic<uint64_t> frames_at_last_{0};
+  uint64_t previous_start_lsn_ ABSL_GUARDED_BY(run_mu_) = 0;
   std::thread thread_;
 };
 

@@ -215,7 +215,8 @@ int Main(int argc, char** argv) {
     copt.dir = state_dir;
     copt.interval = absl::Seconds(absl::GetFlag(FLAGS_checkpoint_seconds));
     copt.frames = static_cast<uint64_t>(std::max<int64_t>(1, absl::GetFlag(FLAGS_checkpoint_frames)));
-    checkpointer = std::make_unique<bws::Checkpointer>(&registry, wal.get(), &frames_applied, copt);
+    checkpointer = std::make_unique<bws::Checkpointer>(&registry, wal.get(), &frames_applied, copt,
+                                                       recovered->checkpoint_start_lsn);
     service.SetCheckpointer(checkpointer.get());
     service.SetLoading(false);
   }

@@ -185,6 +185,7 @@ absl::StatusOr<Recovery> Recover(const std::string& dir) {
     checkpoint = *std::move(c);
     out.pools = std::move(pools);
     out.checkpoint_file = path;
+    out.checkpoint_start_lsn = checkpoint.start_lsn();
     loaded = true;
     break;
   }
@@ -253,6 +254,21 @@ absl::StatusOr<Recovery> Recover(const std::string& dir) {
     }
     return absl::OkStatus();
   };
+  // The log must reach back to the checkpoint: a gap would silently lose frames.
+  uint64_t first_lsn = 0, unused_next = 0;
+  std::string ignored;
+  if (absl::Status s = ReadWal(
+          dir, ~uint64_t{0}, [](const v1::WalRecord&) { return absl::OkStatus(); }, &unused_next,
+          &ignored, /*repair=*/false, &first_lsn);
+      !s.ok()) {
+    return s;
+  }
+  if (first_lsn > start_lsn + 1) {
+    return absl::DataLossError(absl::StrCat(
+        "the write-ahead log in ", dir, " starts at LSN ", first_lsn, " but checkpoint ",
+        out.checkpoint_file, " needs it from LSN ", start_lsn + 1,
+        "; refusing to start with frames missing"));
+  }
   std::string warning;
   if (absl::Status s = ReadWal(dir, 0, apply, &out.next_lsn, &warning, /*repair=*/true); !s.ok()) {
     return s;

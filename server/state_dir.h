@@ -51,6 +51,7 @@ struct Recovery {
   uint64_t records_replayed = 0;
   uint64_t frames_replayed = 0;
   std::string checkpoint_file;  // empty if none
+  uint64_t checkpoint_start_lsn = 0;
   std::vector<std::string> warnings;
 };
 

@@ -244,7 +244,8 @@ void Wal::FlushLoop() {
 
 absl::Status ReadWal(const std::string& dir, uint64_t after_lsn,
                      const std::function<absl::Status(const v1::WalRecord&)>& fn,
-                     uint64_t* next_lsn, std::string* warning, bool repair) {
+                     uint64_t* next_lsn, std::string* warning, bool repair,
+                     uint64_t* first_lsn) {
   std::vector<std::pair<uint64_t, std::string>> segments;
   std::error_code ec;
   for (const auto& e : std::filesystem::directory_iterator(dir, ec)) {
@@ -255,6 +256,7 @@ absl::Status ReadWal(const std::string& dir, uint64_t after_lsn,
   }
   if (ec) return absl::UnavailableError(absl::StrCat("list ", dir, ": ", ec.message()));
   std::sort(segments.begin(), segments.end());
+  if (first_lsn != nullptr) *first_lsn = segments.empty() ? 0 : segments.front().first;
   uint64_t expected = segments.empty() ? after_lsn + 1 : segments.front().first;
   for (size_t si = 0; si < segments.size(); ++si) {
     const bool last = si + 1 == segments.size();

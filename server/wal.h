@@ -99,10 +99,12 @@ class Wal {
 // dropped, and `warning` says so; with `repair` the segment is cut there (so the next
 // start does not meet the same damage in a non-last segment). A bad record in an earlier
 // segment is DATA_LOSS naming the file and offset. `next_lsn` receives the LSN the next
-// record should have.
+// record should have; `first_lsn` (if non-null) the first segment's first LSN (0 when the
+// log is empty).
 absl::Status ReadWal(const std::string& dir, uint64_t after_lsn,
                      const std::function<absl::Status(const v1::WalRecord&)>& fn,
-                     uint64_t* next_lsn, std::string* warning, bool repair = false);
+                     uint64_t* next_lsn, std::string* warning, bool repair = false,
+                     uint64_t* first_lsn = nullptr);
 
 // Writes, syncs and renames a file into place: `dir`/`name` holds `contents` afterwards,
 // or the call failed and the old file (if any) is intact. The directory is synced too.

@@ -50,6 +50,7 @@ constexpr char kUsage[] =
     "  pools                                list the daemon's pools\n"
     "  describe --pool P                    a pool's streams and questions\n"
     "  delete --pool P                      delete a pool and everything it learned\n"
+    "  checkpoint                           ask the daemon to write a checkpoint now\n"
     "  replay --spec F.json --csv F.csv --out PRED.csv\n"
     "                                       run a spec over history in-process (no server);\n"
     "                                       PRED.csv has each row's predictions;\n"
@@ -314,6 +315,15 @@ int Delete(const Args& args) {
   return kExitOk;
 }
 
+int CheckpointNow(const Args& args) {
+  auto client = Client::Connect(args.server);
+  auto done = client->Checkpoint();
+  if (!done.ok()) return ServerError(done.status());
+  std::cout << absl::StrFormat("checkpoint %s: %d pools, %d bytes, %.3f s\n", done->file(),
+                               done->pools(), done->bytes(), done->seconds());
+  return kExitOk;
+}
+
 int Replay(const Args& args) {
   const auto spec_flag = args.flags.find("spec"), csv = args.flags.find("csv"),
              out = args.flags.find("out");
@@ -480,6 +490,10 @@ int Main(int argc, char** argv) {
       return UsageError(args.command + ": unknown flag --" + bad);
     }
     return args.command == "describe" ? Describe(args) : Delete(args);
+  }
+  if (args.command == "checkpoint") {
+    if (!OnlyFlags(args, {}, &bad)) return UsageError("checkpoint: unknown flag --" + bad);
+    return CheckpointNow(args);
   }
   if (args.command == "replay") {
     if (!OnlyFlags(args, {"spec", "csv", "out", "summary", "score-from-row"}, &bad)) {

@@ -20,9 +20,10 @@ namespace bellwether::testing {
 
 class DaemonProcess {
  public:
-  // Starts the daemon with `--listen 127.0.0.1:0 --state-dir TMP` plus `extra_args`.
-  explicit DaemonProcess(std::vector<std::string> extra_args = {}) {
-    state_dir_ = MakeTempDir("daemon");
+  // Starts the daemon with `--listen 127.0.0.1:0 --state-dir DIR` plus `extra_args`;
+  // DIR is `state_dir`, or a fresh temporary directory.
+  explicit DaemonProcess(std::vector<std::string> extra_args = {}, std::string state_dir = "") {
+    state_dir_ = state_dir.empty() ? MakeTempDir("daemon") : state_dir;
     std::vector<std::string> args = {BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--state-dir",
                                      state_dir_};
     bool http = false;
@@ -60,6 +61,16 @@ class DaemonProcess {
   }
   DaemonProcess(const DaemonProcess&) = delete;
   DaemonProcess& operator=(const DaemonProcess&) = delete;
+
+  // SIGKILL: a crash at an arbitrary moment.
+  void Kill() {
+    if (stopped_) return;
+    stopped_ = true;
+    kill(pid_, SIGKILL);
+    int status = 0;
+    waitpid(pid_, &status, 0);
+  }
+  const std::string& state_dir() const { return state_dir_; }
 
   // Sends SIGTERM (without waiting).
   void Terminate() { kill(pid_, SIGTERM); }
