@@ -1,6 +1,9 @@
 #include "client/bellwether_client.h"
 
+#include <algorithm>
+
 #include "absl/strings/str_cat.h"
+#include "absl/time/clock.h"
 #include "grpcpp/grpcpp.h"
 
 namespace bellwether {
@@ -68,8 +71,14 @@ absl::Status IngestSession::Finish() {
 }
 
 std::unique_ptr<Client> Client::Connect(const std::string& target) {
-  return std::unique_ptr<Client>(
-      new Client(grpc::CreateChannel(target, grpc::InsecureChannelCredentials())));
+  grpc::ChannelArguments args;
+  // A restarted daemon is found again within a couple of seconds (gRPC's default backoff
+  // grows to two minutes).
+  args.SetInt(GRPC_ARG_INITIAL_RECONNECT_BACKOFF_MS, 100);
+  args.SetInt(GRPC_ARG_MIN_RECONNECT_BACKOFF_MS, 100);
+  args.SetInt(GRPC_ARG_MAX_RECONNECT_BACKOFF_MS, 2000);
+  return std::unique_ptr<Client>(new Client(
+      grpc::CreateCustomChannel(target, grpc::InsecureChannelCredentials(), args)));
 }
 
 Client::Client(std::shared_ptr<grpc::Channel> channel)
@@ -128,7 +137,90 @@ absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(
     return s;
   }
   session->resumed_seq_ = first.applied_seq();
+  session->resumed_durable_seq_ = first.durable_seq();
   return session;
+}
+
+ResumingIngest::ResumingIngest(Client* client, std::string pool, std::string stream,
+                               std::vector<std::string> columns, Options options)
+    : client_(client),
+      pool_(std::move(pool)),
+      stream_(std::move(stream)),
+      columns_(std::move(columns)),
+      options_(options) {}
+
+namespace {
+
+bool Retryable(absl::StatusCode code) {
+  switch (code) {
+    case absl::StatusCode::kUnavailable:
+    case absl::StatusCode::kResourceExhausted:
+    case absl::StatusCode::kCancelled:
+    case absl::StatusCode::kDeadlineExceeded:
+    case absl::StatusCode::kFailedPrecondition:  // the spec changed: reopen
+    case absl::StatusCode::kAborted:
+      return true;
+    default:
+      return false;
+  }
+}
+
+}  // namespace
+
+absl::StatusOr<v1::IngestResponse> ResumingIngest::Send(const v1::FrameBatch& batch) {
+  for (const v1::Frame& f : batch.frames()) pending_.push_back(f);
+  absl::Duration backoff = options_.initial_backoff;
+  absl::Status last;
+  for (int attempt = 0; attempt < options_.max_attempts; ++attempt) {
+    if (attempt > 0) {
+      absl::SleepFor(backoff);
+      backoff = std::min(backoff * 2, options_.max_backoff);
+    }
+    if (session_ == nullptr) {
+      IngestOptions o;
+      o.resume = true;
+      auto opened = client_->OpenIngest(pool_, stream_, columns_, o);
+      if (!opened.ok()) {
+        last = opened.status();
+        if (!Retryable(last.code())) return last;
+        continue;
+      }
+      session_ = *std::move(opened);
+      if (attempt > 0 || reconnects_ > 0 || durable_seq_ > 0) ++reconnects_;
+      durable_seq_ = std::max(durable_seq_, session_->resumed_durable_seq());
+    }
+    // Resend everything not yet durable (the daemon skips what it already applied).
+    v1::FrameBatch resend;
+    for (const v1::Frame& f : pending_) {
+      if (f.seq() > durable_seq_) *resend.add_frames() = f;
+    }
+    auto ack = session_->Send(resend);
+    if (!ack.ok()) {
+      last = ack.status();
+      session_.reset();
+      if (!Retryable(last.code())) return last;
+      continue;
+    }
+    durable_seq_ = std::max(durable_seq_, ack->durable_seq());
+    // Keep only what is not durable yet (all of it without a state dir: durable_seq 0).
+    if (ack->durable_seq() > 0) {
+      pending_.erase(std::remove_if(pending_.begin(), pending_.end(),
+                                    [&](const v1::Frame& f) { return f.seq() <= durable_seq_; }),
+                     pending_.end());
+    } else {
+      pending_.clear();  // the daemon keeps nothing durable: nothing to resend after a crash
+    }
+    return ack;
+  }
+  return absl::Status(last.code(), absl::StrCat("after ", options_.max_attempts,
+                                                " attempts: ", last.message()));
+}
+
+absl::Status ResumingIngest::Finish() {
+  if (session_ == nullptr) return absl::OkStatus();
+  absl::Status s = session_->Finish();
+  session_.reset();
+  return s;
 }
 
 absl::StatusOr<v1::StreamPredictions> Client::Predict(const std::string& pool,

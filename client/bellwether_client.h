@@ -40,13 +40,15 @@ class IngestSession {
   // Closes the stream and returns the server's final status.
   absl::Status Finish();
 
-  // With IngestOptions::resume: the stream's applied seq when the session opened.
+  // With IngestOptions::resume: the stream's applied and durable seq when it opened.
   uint64_t resumed_seq() const { return resumed_seq_; }
+  uint64_t resumed_durable_seq() const { return resumed_durable_seq_; }
 
  private:
   friend class Client;
   IngestSession() = default;
   uint64_t resumed_seq_ = 0;
+  uint64_t resumed_durable_seq_ = 0;
   std::unique_ptr<grpc::ClientContext> context_;
   std::unique_ptr<grpc::ClientReaderWriter<v1::IngestRequest, v1::IngestResponse>> stream_;
   bool finished_ = false;
@@ -72,6 +74,51 @@ class WatchSession {
   std::unique_ptr<grpc::ClientContext> context_;
   std::unique_ptr<grpc::ClientReader<v1::StreamPredictions>> reader_;
   bool finished_ = false;
+};
+
+class Client;
+
+// An ingest stream that survives daemon restarts and broken connections: it keeps every
+// frame it sent until the daemon reports it durable, and when a call breaks
+// (UNAVAILABLE, RESOURCE_EXHAUSTED, CANCELLED, DEADLINE_EXCEEDED, or FAILED_PRECONDITION
+// after a spec change) it reopens with `resume`, learns the stream's durable_seq and
+// resends what came after it, backing off between attempts. Frames the daemon already
+// applied are skipped there as duplicates, so nothing is learned twice. Errors that a
+// resend cannot fix (INVALID_ARGUMENT, NOT_FOUND) are returned.
+class ResumingIngest {
+ public:
+  struct Options {
+    int max_attempts = 20;  // per Send, reconnects included
+    absl::Duration initial_backoff = absl::Milliseconds(50);
+    absl::Duration max_backoff = absl::Seconds(2);
+  };
+  // `client` must outlive this.
+  ResumingIngest(Client* client, std::string pool, std::string stream,
+                 std::vector<std::string> columns, Options options);
+  ResumingIngest(Client* client, std::string pool, std::string stream,
+                 std::vector<std::string> columns)
+      : ResumingIngest(client, std::move(pool), std::move(stream), std::move(columns),
+                       Options()) {}
+
+  // Sends `batch` (and any earlier frames not yet durable) until acknowledged.
+  absl::StatusOr<v1::IngestResponse> Send(const v1::FrameBatch& batch);
+  // Closes the stream.
+  absl::Status Finish();
+
+  uint64_t durable_seq() const { return durable_seq_; }
+  int reconnects() const { return reconnects_; }
+  // Frames sent but not yet reported durable.
+  size_t pending() const { return pending_.size(); }
+
+ private:
+  Client* client_;
+  std::string pool_, stream_;
+  std::vector<std::string> columns_;
+  Options options_;
+  std::unique_ptr<IngestSession> session_;
+  std::vector<v1::Frame> pending_;  // seq order, all above durable_seq_
+  uint64_t durable_seq_ = 0;
+  int reconnects_ = 0;
 };
 
 struct IngestOptions {

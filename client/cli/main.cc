@@ -188,14 +188,15 @@ int Stream(const Args& args) {
   auto reader = CsvFrameReader::Open(args.positional[0]);
   if (!reader.ok()) return UsageError(std::string(reader.status().message()));
   auto client = Client::Connect(args.server);
-  auto session = client->OpenIngest(pool->second, stream->second, (*reader)->signal_columns());
-  if (!session.ok()) return ServerError(session.status());
+  // Survives a daemon restart: resends what was not yet durable, skips what was applied.
+  ResumingIngest session(client.get(), pool->second, stream->second,
+                         (*reader)->signal_columns());
   v1::FrameBatch batch;
   uint64_t sent = 0, applied_seq = 0, durable_seq = 0, rejected = 0, duplicates = 0;
   constexpr uint64_t kRejectionsShown = 5;
   auto flush = [&]() -> absl::Status {
     if (batch.frames_size() == 0) return absl::OkStatus();
-    auto ack = (*session)->Send(batch);
+    auto ack = session.Send(batch);
     if (!ack.ok()) return ack.status();
     sent += static_cast<uint64_t>(batch.frames_size());
     applied_seq = ack->applied_seq();
@@ -226,7 +227,11 @@ int Stream(const Args& args) {
     }
   }
   if (auto s = flush(); !s.ok()) return ServerError(s);
-  if (auto s = (*session)->Finish(); !s.ok()) return ServerError(s);
+  if (auto s = session.Finish(); !s.ok()) return ServerError(s);
+  if (session.reconnects() > 0) {
+    std::cerr << "bellwether: reconnected " << session.reconnects()
+              << " times and resent from the durable seq\n";
+  }
   std::cout << "streamed " << sent << " frames to " << pool->second << "/" << stream->second
             << " (applied seq " << applied_seq;
   if (durable_seq > 0) std::cout << ", durable seq " << durable_seq;

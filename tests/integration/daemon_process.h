@@ -1,6 +1,8 @@
 // The real bellwetherd as a child process on 127.0.0.1 (port 0), for integration tests:
 // reads the bound gRPC (and, with --http, HTTP) address from its first lines of stdout.
 // The child dies with the test process, so a test killed by a timeout leaves no daemon.
+// (PR_SET_PDEATHSIG fires when the creating THREAD exits: construct it on a thread that
+// outlives it.)
 #ifndef BELLWETHER_TESTS_INTEGRATION_DAEMON_PROCESS_H_
 #define BELLWETHER_TESTS_INTEGRATION_DAEMON_PROCESS_H_
 

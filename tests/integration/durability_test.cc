@@ -324,6 +324,49 @@ TEST(Durability, FullDiskRefusesIngestAndKeepsServing) {
   EXPECT_TRUE(DaemonState(*c2, dir) == ReferenceState(*spec, frames, durable));
 }
 
+// The client library's ResumingIngest rides through a SIGKILL and restart of the daemon
+// on the same address: it reconnects, resends from durable_seq, and the end state is the
+// reference replay's.
+TEST(Durability, ResumingIngestSurvivesADaemonRestart) {
+  const std::string dir = testing::MakeTempDir("resuming");
+  auto spec = ReadPoolSpecFile(SpecPath());
+  ASSERT_TRUE(spec.ok());
+  const std::vector<v1::Frame> frames = DemandFrames();
+  auto daemon = std::make_unique<testing::DaemonProcess>(std::vector<std::string>{}, dir);
+  const std::string address = daemon->address();
+  ASSERT_THAT(address, HasSubstr("127.0.0.1:"));
+  auto client = Client::Connect(address);
+  ASSERT_TRUE(client->ApplyPool(*spec).ok());
+  ResumingIngest::Options options;
+  options.initial_backoff = absl::Milliseconds(20);
+  ResumingIngest ingest(client.get(), "grid", "uk", {"demand_mw"}, options);
+  size_t i = 0;
+  auto send_up_to = [&](size_t end) {
+    while (i < end) {
+      v1::FrameBatch batch;
+      for (; i < end && batch.frames_size() < 64; ++i) *batch.add_frames() = frames[i];
+      auto ack = ingest.Send(batch);
+      ASSERT_TRUE(ack.ok()) << ack.status();
+    }
+  };
+  send_up_to(1200);
+  daemon->Kill();
+  // The producer carries on (its first sends fail until the daemon is back) while this
+  // thread restarts the daemon on the same address with the same state directory. (The
+  // daemon is started from this thread: it dies with the thread that started it.)
+  std::thread producer([&] { send_up_to(frames.size()); });
+  std::this_thread::sleep_for(std::chrono::milliseconds(200));
+  daemon = std::make_unique<testing::DaemonProcess>(std::vector<std::string>{"--listen", address},
+                                                    dir);
+  producer.join();
+  EXPECT_EQ(daemon->address(), address);
+  ASSERT_TRUE(ingest.Finish().ok());
+  EXPECT_GE(ingest.reconnects(), 1);
+  EXPECT_EQ(ingest.durable_seq(), frames.size());
+  EXPECT_EQ(ingest.pending(), 0u);
+  EXPECT_TRUE(DaemonState(*client, dir) == ReferenceState(*spec, frames, frames.size()));
+}
+
 TEST(Durability, ForeignStateFormatIsRefusedWithAClearMessage) {
   const std::string dir = testing::MakeTempDir("foreign");
   {
