@@ -194,6 +194,10 @@ absl::StatusOr<v1::IngestResponse> ResumingIngest::Send(const v1::FrameBatch& ba
     for (const v1::Frame& f : pending_) {
       if (f.seq() > durable_seq_) *resend.add_frames() = f;
     }
+    already_durable_ += pending_.size() - static_cast<size_t>(resend.frames_size());
+    pending_.erase(std::remove_if(pending_.begin(), pending_.end(),
+                                  [&](const v1::Frame& f) { return f.seq() <= durable_seq_; }),
+                   pending_.end());
     auto ack = session_->Send(resend);
     if (!ack.ok()) {
       last = ack.status();

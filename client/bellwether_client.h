@@ -109,6 +109,8 @@ class ResumingIngest {
   int reconnects() const { return reconnects_; }
   // Frames sent but not yet reported durable.
   size_t pending() const { return pending_.size(); }
+  // Frames handed to Send that the daemon already had durable (not sent again).
+  uint64_t already_durable() const { return already_durable_; }
 
  private:
   Client* client_;
@@ -118,6 +120,7 @@ class ResumingIngest {
   std::unique_ptr<IngestSession> session_;
   std::vector<v1::Frame> pending_;  // seq order, all above durable_seq_
   uint64_t durable_seq_ = 0;
+  uint64_t already_durable_ = 0;
   int reconnects_ = 0;
 };
 

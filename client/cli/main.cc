@@ -236,6 +236,7 @@ int Stream(const Args& args) {
             << " (applied seq " << applied_seq;
   if (durable_seq > 0) std::cout << ", durable seq " << durable_seq;
   std::cout << ")\n";
+  duplicates += session.already_durable();
   if (duplicates > 0) {
     std::cout << duplicates << " frames were already applied (seq at or below the stream's) "
               << "and were skipped\n";
