@@ -39,6 +39,7 @@
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
+#include <cstring>
 #include <filesystem>
 #include <fstream>
 #include <iostream>
@@ -59,6 +60,7 @@
 #include "absl/time/time.h"
 #include "client/bellwether_client.h"
 #include "core/frame_input.h"
+#include "core/io/crc32c.h"
 #include "core/pool.h"
 #include "google/protobuf/util/json_util.h"
 #include "server/state_dir.h"
@@ -536,6 +538,18 @@ int InProcessCheckpoint(const Options& o) {
   const Memory after_save = SelfMemory();
   const uint64_t state_bytes = state.size();
 
+  // Diagnostic: the same SaveState into a string reserved to the final size (how much of
+  // the time above is the string growing and copying itself).
+  double save_reserved_s = 0;
+  {
+    std::string reserved;
+    reserved.reserve(state_bytes);
+    std::memset(reserved.data(), 0, state_bytes);  // fault the pages in before timing
+    t0 = SteadyClock::now();
+    pool->SaveState(&reserved);
+    save_reserved_s = SecondsSince(t0);
+  }
+
   v1::Checkpoint checkpoint;
   checkpoint.set_format_version(server::kStateFormatVersion);
   checkpoint.set_created_unix_micros(absl::ToUnixMicros(absl::Now()));
@@ -545,6 +559,18 @@ int InProcessCheckpoint(const Options& o) {
   pc->set_generation(1);
   pc->set_wal_lsn(1);
   *pc->mutable_state() = std::move(state);
+
+  // Diagnostic: EncodeCheckpoint's two big steps on their own.
+  double serialize_s = 0, crc_s = 0;
+  {
+    t0 = SteadyClock::now();
+    const std::string payload = checkpoint.SerializeAsString();
+    serialize_s = SecondsSince(t0);
+    t0 = SteadyClock::now();
+    const uint32_t crc = Crc32c(payload);
+    crc_s = SecondsSince(t0);
+    if (payload.empty()) std::cout << "SerializeAsString gave nothing (crc " << crc << ")\n";
+  }
 
   ResetPeak();
   t0 = SteadyClock::now();
@@ -565,22 +591,28 @@ int InProcessCheckpoint(const Options& o) {
     return 2;
   }
   const std::string file = absl::StrFormat("%s/checkpoint-%020d.bwc", o.dir, 1);
+  const double arrays = static_cast<double>(state_bytes) /
+                        (static_cast<double>(MeasureState(*pool, RoomName(0)).weight_cells) * 4 *
+                         (spec.learning() == v1::PoolSpec::POOLED ? 1 : o.streams));
   std::cout << absl::StrFormat(
-      "SaveState: %.3f s, %d bytes (%.1f MiB; %.2f x one float array), RSS %.0f MiB after\n",
-      save_s, state_bytes, static_cast<double>(state_bytes) / (1 << 20),
-      static_cast<double>(state_bytes) /
-          (static_cast<double>(MeasureState(*pool, RoomName(0)).weight_cells) * 4 *
-           (spec.learning() == v1::PoolSpec::POOLED ? 1 : o.streams)),
-      after_save.rss_mib);
+      "SaveState: %.3f s, %d bytes (%.1f MiB; %.2f x one float array), RSS %.0f MiB after; "
+      "into a string reserved to that size beforehand: %.3f s\n",
+      save_s, state_bytes, static_cast<double>(state_bytes) / (1 << 20), arrays,
+      after_save.rss_mib, save_reserved_s);
   std::cout << absl::StrFormat(
-      "EncodeCheckpoint: %.3f s, %d bytes; peak RSS during it %.0f MiB (%.0f MiB before it)\n",
-      encode_s, encoded_bytes, encode_mem.peak_mib, after_save.rss_mib);
+      "EncodeCheckpoint: %.3f s, %d bytes; peak RSS during it %.0f MiB (%.0f MiB before it); "
+      "of which alone: Checkpoint::SerializeAsString %.3f s, Crc32c %.3f s\n",
+      encode_s, encoded_bytes, encode_mem.peak_mib, after_save.rss_mib, serialize_s, crc_s);
   std::cout << absl::StrFormat(
       "WriteCheckpoint (encode + write + fsync + rename + dir fsync): %.3f s, %d bytes to %s; "
       "peak RSS during it %.0f MiB\n",
       write_s, *written, file, write_mem.peak_mib);
   Result("inproc.state_bytes", static_cast<double>(state_bytes));
+  Result("inproc.state_arrays", arrays);
   Result("inproc.save_s", save_s);
+  Result("inproc.save_reserved_s", save_reserved_s);
+  Result("inproc.serialize_s", serialize_s);
+  Result("inproc.crc_s", crc_s);
   Result("inproc.encode_s", encode_s);
   Result("inproc.write_s", write_s);
   Result("inproc.file_bytes", static_cast<double>(*written));
@@ -589,6 +621,7 @@ int InProcessCheckpoint(const Options& o) {
 
   // Load, as recovery does it: read the file, decode, create the pool, restore.
   pool.reset();
+  checkpoint = v1::Checkpoint();
   const Memory before_load = SelfMemory();
   ResetPeak();
   const auto load_start = SteadyClock::now();
@@ -636,6 +669,7 @@ int InProcessCheckpoint(const Options& o) {
 
   // The restored pool must hold exactly what was saved (else the figures mean nothing).
   std::string again;
+  again.reserve(decoded->pools(0).state().size());
   (*restored)->SaveState(&again);
   const bool same = again == decoded->pools(0).state();
   std::cout << "restored pool saves the same bytes: " << (same ? "yes" : "NO") << "\n";
