@@ -17,6 +17,8 @@
 #include "absl/time/clock.h"
 #include "client/bellwether_client.h"
 #include "client/cli/campus_sim.h"
+#include "client/cli/cli_common.h"
+#include "client/cli/commands.h"
 #include "client/cli/replay_summary.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
@@ -25,16 +27,6 @@
 
 namespace bellwether::cli {
 namespace {
-
-// Exit codes (documented in --help and the README).
-constexpr int kExitOk = 0;
-constexpr int kExitUsage = 1;
-constexpr int kExitServer = 2;
-constexpr int kExitPartial = 3;
-
-constexpr char kCaution[] =
-    "Predictions are advisory. Bellwether is not a safety system: building-control and\n"
-    "vehicle-charging decisions follow local codes and licensed practice.\n";
 
 constexpr char kUsage[] =
     "usage: bellwether [--server HOST:PORT] COMMAND [ARGS]\n"
@@ -71,73 +63,6 @@ constexpr char kUsage[] =
     "exit codes: 0 ok, 1 usage or local input error, 2 server error (gRPC status named),\n"
     "            3 partial (some frames were rejected)\n"
     "\n";
-
-struct Args {
-  std::string server = "127.0.0.1:50151";
-  std::string command;
-  std::map<std::string, std::string> flags;
-  std::vector<std::string> positional;
-};
-
-// Parses "--name value" and "--name=value" pairs; everything else is positional.
-bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
-  std::vector<std::string> rest;
-  for (int i = 1; i < argc; ++i) {
-    std::string a = argv[i];
-    if (a.rfind("--", 0) == 0 && a.size() > 2) {
-      std::string name = a.substr(2), value;
-      const auto eq = name.find('=');
-      if (eq != std::string::npos) {
-        value = name.substr(eq + 1);
-        name = name.substr(0, eq);
-      } else if (name == "help" || name == "summary" || name == "dry-run") {
-        value = "1";
-      } else if (i + 1 < argc) {
-        value = argv[++i];
-      } else {
-        *error = absl::StrCat("--", name, " needs a value");
-        return false;
-      }
-      if (name == "server") {
-        args->server = value;
-      } else {
-        args->flags[name] = value;
-      }
-    } else if (a == "-h") {
-      args->flags["help"] = "1";
-    } else if (args->command.empty()) {
-      args->command = a;
-    } else {
-      args->positional.push_back(a);
-    }
-  }
-  return true;
-}
-
-int UsageError(const std::string& message) {
-  std::cerr << "bellwether: " << message << "\n(see bellwether --help)\n";
-  return kExitUsage;
-}
-
-int ServerError(const absl::Status& status) {
-  std::cerr << "bellwether: server error "
-            << GrpcCodeName(static_cast<grpc::StatusCode>(status.code())) << ": "
-            << status.message() << "\n";
-  return kExitServer;
-}
-
-// Checks that exactly the flags in `allowed` were given.
-bool OnlyFlags(const Args& args, std::initializer_list<const char*> allowed, std::string* bad) {
-  for (const auto& [name, value] : args.flags) {
-    bool ok = name == "help";
-    for (const char* a : allowed) ok |= (name == a);
-    if (!ok) {
-      *bad = name;
-      return false;
-    }
-  }
-  return true;
-}
 
 int Apply(const Args& args) {
   if (args.positional.size() != 1) return UsageError("apply: expected one FILE.json");

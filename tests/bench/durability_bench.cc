@@ -26,6 +26,10 @@
 //       one stream each, one batch in flight per stream; frames/s from the acks.
 //   check-stream --server HOST:PORT --pool NAME --stream NAME
 //       Prints the stream's applied seq and answer count (after a restart).
+//   checkpoint-stall --server HOST:PORT [--pool coldstore] [--stream room-000] [--batch 8]
+//       Continues the stream from its applied seq with one producer; after 2 s calls the
+//       Checkpoint RPC; 2 s after it returns, stops. Reports the longest gap between acks
+//       (ingest into the pool waits while its state is captured).
 //   inproc-recover --dir DIR
 //       Times one pass over the write-ahead log that only parses records (ReadWal with a
 //       no-op callback), then a full Recover(DIR), in this process. DIR is changed (a torn
@@ -39,7 +43,6 @@
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
-#include <cstring>
 #include <filesystem>
 #include <fstream>
 #include <iostream>
@@ -106,6 +109,7 @@ constexpr char kUsage[] =
     "  ingest            --server HOST:PORT [--frames 200000] [--batch 64] [--producers 4]\n"
     "                    [--max-seconds 120] [--pool NAME]\n"
     "  check-stream      --server HOST:PORT --pool NAME --stream NAME\n"
+    "  checkpoint-stall  --server HOST:PORT [--pool coldstore] [--stream room-000] [--batch 8]\n"
     "  inproc-recover    --dir DIR   (changes DIR: pass a copy)\n"
     "Durability benchmarks on an invented cold-storage scenario (synthetic frames). Run by\n"
     "hand; see tests/bench/durability_bench.sh. Predictions are advisory, not a safety\n"
@@ -543,8 +547,8 @@ int InProcessCheckpoint(const Options& o) {
   double save_reserved_s = 0;
   {
     std::string reserved;
-    reserved.reserve(state_bytes);
-    std::memset(reserved.data(), 0, state_bytes);  // fault the pages in before timing
+    reserved.resize(state_bytes);  // faults the pages in before timing
+    reserved.clear();              // keeps the capacity
     t0 = SteadyClock::now();
     pool->SaveState(&reserved);
     save_reserved_s = SecondsSince(t0);
@@ -857,6 +861,99 @@ int DaemonCheckpoint(const Options& o) {
 }
 
 // ---------------------------------------------------------------------------------------
+// checkpoint-stall: a Checkpoint RPC while one producer keeps streaming into the pool. The
+// pool's writer captures the state between two batches, so ingest into that pool waits
+// while SaveState runs; the longest gap between acknowledgements shows how long.
+
+int CheckpointStall(const Options& o) {
+  const std::string pool = o.pool.empty() ? "coldstore" : o.pool;
+  const std::string stream = o.stream.empty() ? RoomName(0) : o.stream;
+  auto client = Client::Connect(o.server);
+  IngestOptions io;
+  io.resume = true;
+  auto session = client->OpenIngest(pool, stream, {}, io);
+  if (!session.ok()) {
+    std::cerr << "durability_bench: open " << pool << "/" << stream << ": " << session.status()
+              << "\n";
+    return 2;
+  }
+  // Continue the stream where it stands: the same room, advanced past the frames sent.
+  Room room(o.seed, 0);
+  v1::Frame skip;
+  for (uint64_t i = 0; i < (*session)->resumed_seq(); ++i) room.Next(&skip);
+
+  struct Ack {
+    double at = 0;  // seconds since start
+    int frames = 0;
+  };
+  std::vector<Ack> acks;
+  std::atomic<bool> stop{false};
+  std::string error;
+  const auto start = SteadyClock::now();
+  std::thread producer([&] {
+    v1::FrameBatch batch;
+    while (!stop.load()) {
+      batch.Clear();
+      for (int i = 0; i < o.batch; ++i) room.Next(batch.add_frames());
+      auto ack = (*session)->Send(batch);
+      if (!ack.ok()) {
+        error = absl::StrCat(CodeName(ack.status()), ": ", ack.status().message());
+        return;
+      }
+      acks.push_back(Ack{SecondsSince(start), o.batch - ack->rejected_size()});
+    }
+  });
+  constexpr double kQuietSeconds = 2;
+  std::this_thread::sleep_for(std::chrono::duration<double>(kQuietSeconds));
+  const double rpc_start = SecondsSince(start);
+  auto done = client->Checkpoint(absl::Seconds(1200));
+  const double rpc_end = SecondsSince(start);
+  std::this_thread::sleep_for(std::chrono::duration<double>(kQuietSeconds));
+  stop.store(true);
+  producer.join();
+  (void)(*session)->Finish();
+  if (!done.ok()) {
+    std::cerr << "durability_bench: Checkpoint RPC: " << done.status() << "\n";
+    return 2;
+  }
+  if (!error.empty()) std::cout << "  producer error: " << error << "\n";
+
+  // Gaps between consecutive acks (the first measured from the start).
+  double prev = 0, max_gap = 0, max_gap_at = 0;
+  std::vector<double> quiet_gaps;
+  int frames_before = 0, frames_during = 0;
+  for (const Ack& a : acks) {
+    const double gap = a.at - prev;
+    if (a.at <= rpc_start) {
+      quiet_gaps.push_back(gap);
+      frames_before += a.frames;
+    } else if (a.at <= rpc_end) {
+      frames_during += a.frames;
+    }
+    if (a.at > rpc_start && gap > max_gap) {
+      max_gap = gap;
+      max_gap_at = prev;
+    }
+    prev = a.at;
+  }
+  std::sort(quiet_gaps.begin(), quiet_gaps.end());
+  const double median_quiet = quiet_gaps.empty() ? 0 : quiet_gaps[quiet_gaps.size() / 2];
+  std::cout << absl::StrFormat(
+      "one producer, batches of %d into %s/%s: %.0f frames/s before the checkpoint (median ack "
+      "gap %.1f ms); Checkpoint RPC %.3f s under ingest (daemon %.3f s, %d bytes); %d frames "
+      "acknowledged during it (%.0f frames/s); longest ack gap %.3f s, from %.3f s after the "
+      "RPC began\n",
+      o.batch, pool, stream, frames_before / rpc_start, 1000 * median_quiet, rpc_end - rpc_start,
+      done->seconds(), done->bytes(), frames_during, frames_during / (rpc_end - rpc_start),
+      max_gap, max_gap_at - rpc_start);
+  Result("stall.rpc_s", rpc_end - rpc_start);
+  Result("stall.max_gap_s", max_gap);
+  Result("stall.median_gap_ms", 1000 * median_quiet);
+  Result("stall.frames_during", frames_during);
+  return error.empty() ? 0 : 2;
+}
+
+// ---------------------------------------------------------------------------------------
 // ingest
 
 int Ingest(const Options& o) {
@@ -999,6 +1096,7 @@ int Run(const Options& o) {
   if (o.command == "daemon-checkpoint") return DaemonCheckpoint(o);
   if (o.command == "ingest") return Ingest(o);
   if (o.command == "check-stream") return CheckStream(o);
+  if (o.command == "checkpoint-stall") return CheckpointStall(o);
   std::cerr << "durability_bench: unknown command '" << o.command << "'\n" << kUsage;
   return 1;
 }

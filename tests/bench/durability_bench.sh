@@ -19,7 +19,8 @@
 # Environment (defaults in brackets):
 #   DURABILITY_BENCH_DIR   parent of the work directory [/tmp]
 #   BENCH_QUESTIONS [1000] BENCH_TABLE [65536] BENCH_CK_FRAMES [3000] BENCH_LEARNING [per_stream]
-#   BENCH_INGEST_FRAMES [200000] BENCH_PRODUCERS [4] BENCH_RECOVERY_FRAMES [1000000]
+#   BENCH_INGEST_FRAMES [150000] BENCH_INGEST_REPEATS [3] BENCH_PRODUCERS [4]
+#   BENCH_RECOVERY_FRAMES [1000000]
 #   BENCH_SKIP  space-separated parts to skip: checkpoint ingest recovery
 # The machine's memory must hold about 4x the large pool's state (~6 GiB at the defaults).
 set -euo pipefail
@@ -39,7 +40,8 @@ questions=${BENCH_QUESTIONS:-1000}
 table=${BENCH_TABLE:-65536}
 ck_frames=${BENCH_CK_FRAMES:-3000}
 learning=${BENCH_LEARNING:-per_stream}
-ingest_frames=${BENCH_INGEST_FRAMES:-200000}
+ingest_frames=${BENCH_INGEST_FRAMES:-150000}
+ingest_repeats=${BENCH_INGEST_REPEATS:-3}
 producers=${BENCH_PRODUCERS:-4}
 recovery_frames=${BENCH_RECOVERY_FRAMES:-1000000}
 skip=" ${BENCH_SKIP:-} "
@@ -172,12 +174,16 @@ if [[ $skip != *" checkpoint "* ]]; then
   echo "restarted daemon: RSS $ck_restart_rss MiB, peak $ck_restart_peak MiB"
   ck_ready_s=$ready_s
   run_bench ck_check check-stream --server "$address" --pool coldstore --stream room-000
+  echo "a second checkpoint while one producer streams into the pool (batches of 8):"
+  run_bench ck_stall checkpoint-stall --server "$address" --pool coldstore --stream room-000 \
+    --batch 8
   stop_daemon KILL
   rm -rf "$workdir/ck-state"
   echo
   row "1. pool" "$questions questions, $(get ck_inproc pool.blocks) blocks, $(get ck_inproc pool.rows) rows, $(getf ck_inproc pool.array_mib 1) MiB per float array ($learning, 1 stream)"
   row "1. in-process: state bytes (SaveState)" "$(mib "$(get ck_inproc inproc.state_bytes)") in $(getf ck_inproc inproc.save_s) s"
-  row "1. in-process: EncodeCheckpoint" "$(getf ck_inproc inproc.encode_s) s"
+  row "1. in-process: SaveState into a pre-reserved string" "$(getf ck_inproc inproc.save_reserved_s) s"
+  row "1. in-process: EncodeCheckpoint (serialize / crc alone)" "$(getf ck_inproc inproc.encode_s) s ($(getf ck_inproc inproc.serialize_s) / $(getf ck_inproc inproc.crc_s) s)"
   row "1. in-process: WriteCheckpoint (encode+write+fsync)" "$(getf ck_inproc inproc.write_s) s, file $(mib "$(get ck_inproc inproc.file_bytes)")"
   row "1. in-process: peak RSS writing (pool+state+copies)" "$(getf ck_inproc inproc.write_peak_mib 0) MiB (pool alone $(getf ck_inproc inproc.rss_after_feed_mib 0) MiB)"
   row "1. in-process: load (read+decode+create+restore)" "$(getf ck_inproc inproc.load_s) s (read $(getf ck_inproc inproc.read_s), decode $(getf ck_inproc inproc.decode_s), restore $(getf ck_inproc inproc.restore_s))"
@@ -187,13 +193,14 @@ if [[ $skip != *" checkpoint "* ]]; then
   row "1. daemon: RSS before -> peak after checkpoint" "$(getf ck_daemon daemon.rss_before_mib 0) -> $(getf ck_daemon daemon.peak_after_mib 0) MiB"
   row "1. daemon: restart after kill -9, loaded ... in" "$(printf '%.3f' "$(loaded_s ck2)") s (ready after ${ck_ready_s} s), peak RSS $ck_restart_peak MiB"
   row "1. daemon: answers after restart as of seq" "$(get ck_check check.as_of_seq) (fed $(get ck_daemon daemon.stream_seq))"
+  row "1. daemon: Checkpoint RPC under ingest, longest ack gap" "$(getf ck_stall stall.rpc_s) s, $(getf ck_stall stall.max_gap_s) s (median gap before $(getf ck_stall stall.median_gap_ms 1) ms)"
   row "1. feed (learning) $questions questions" "in-process $(getf ck_inproc inproc.feed_s) s, daemon $(getf ck_daemon daemon.feed_s) s for $ck_frames frames"
 fi
 
 # ----------------------------------------------------------------------------------------
 # 2. Ingest throughput by sync mode.
 if [[ $skip != *" ingest "* ]]; then
-  echo "=== 2. ingest: $ingest_frames frames, $producers producers (one stream each), 10-question pool ==="
+  echo "=== 2. ingest: $ingest_frames frames per run, $producers producers (one stream each), 10-question pool ==="
   # Directories to measure on: the work directory; a real disk if /tmp was tmpfs; tmpfs
   # for contrast (fsync is free there) when /dev/shm is one.
   ingest_dirs=("$workdir")
@@ -206,34 +213,49 @@ if [[ $skip != *" ingest "* ]]; then
     extra_dirs+=("$shm")
     ingest_dirs+=("$shm")
   fi
-  n=0
+  configs=()  # "batch mode dir"
   for batch in 64 8; do
     for mode in memory none batch; do
       for dir in "${ingest_dirs[@]}"; do
-        fstype=$(fs_type "$dir")
         if [[ $mode == memory && $dir != "$workdir" ]]; then continue; fi
-        n=$((n + 1))
-        label=ingest_${n}
-        if [[ $mode == memory ]]; then
-          start_daemon "$label"
-          where="no --state-dir"
-        else
-          start_daemon "$label" --state-dir "$dir/state-$n" --sync "$mode"
-          where="--sync=$mode on $fstype ($dir)"
-        fi
-        echo "--- batch $batch, $where"
-        run_bench "$label" ingest --server "$address" --frames "$ingest_frames" --batch "$batch" \
-          --producers "$producers" --max-seconds 60
-        stop_daemon TERM
-        rm -rf "$dir/state-$n"
-        if [[ $mode == memory ]]; then
-          what="no --state-dir"
-        else
-          what="--sync=$mode, $fstype"
-        fi
-        row "2. ingest batch $batch, $what" "$(get "$label" ingest.fps | awk '{ printf "%.0f", $1 }') frames/s ($(get "$label" ingest.frames | awk '{ printf "%d", $1 }') frames in $(get "$label" ingest.seconds | awk '{ printf "%.2f", $1 }') s)"
+        configs+=("$batch $mode $dir")
       done
     done
+  done
+  # Repeats are interleaved (every configuration once, then again) so that a slow spell
+  # of the machine does not land on one configuration only; the summary shows the median.
+  n=0
+  for ((rep = 1; rep <= ingest_repeats; rep++)); do
+    for c in "${!configs[@]}"; do
+      read -r batch mode dir <<<"${configs[$c]}"
+      n=$((n + 1))
+      label=ingest_${n}
+      if [[ $mode == memory ]]; then
+        start_daemon "$label"
+        where="no --state-dir"
+      else
+        start_daemon "$label" --state-dir "$dir/state-$n" --sync "$mode"
+        where="--sync=$mode on $(fs_type "$dir") ($dir)"
+      fi
+      echo "--- run $rep of $ingest_repeats: batch $batch, $where"
+      run_bench "$label" ingest --server "$address" --frames "$ingest_frames" --batch "$batch" \
+        --producers "$producers" --max-seconds 60
+      stop_daemon TERM
+      rm -rf "$dir/state-$n"
+      get "$label" ingest.fps >>"$workdir/config_$c.fps"
+    done
+  done
+  for c in "${!configs[@]}"; do
+    read -r batch mode dir <<<"${configs[$c]}"
+    if [[ $mode == memory ]]; then
+      what="no --state-dir"
+    else
+      what="--sync=$mode, $(fs_type "$dir")"
+    fi
+    row "2. ingest batch $batch, $what" "$(sort -g "$workdir/config_$c.fps" | awk '
+      { v[NR] = $1 }
+      END { m = (NR % 2) ? v[(NR + 1) / 2] : (v[NR / 2] + v[NR / 2 + 1]) / 2
+            printf "%.0f frames/s (median of %d; %.0f..%.0f)", m, NR, v[1], v[NR] }')"
   done
   echo
 fi
