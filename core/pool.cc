@@ -133,6 +133,7 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
     s.prev_time_micros = old_state->prev_time_micros;
     s.behavior_counts = old_state->behavior_counts;
     s.feature_gap_frames = old_state->feature_gap_frames;
+    s.frames_applied = old_state->frames_applied;
     if (!pool->spec_.pooled) copy_params(old_state->own_params, s.own_params);
     for (size_t n = 0; n < from.size(); ++n) {
       if (from[n] < 0) continue;
@@ -518,7 +519,13 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
   s.prev_time_micros = now;
   s.has_prev = true;
   s.last_seq = frame.seq;
+  ++s.frames_applied;
   return absl::OkStatus();
+}
+
+uint64_t Pool::frames_applied(absl::string_view stream) const {
+  auto it = streams_.find(stream);
+  return it == streams_.end() ? 0 : it->second->frames_applied;
 }
 
 uint64_t Pool::last_seq(absl::string_view stream) const {
@@ -674,7 +681,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
 namespace {
 
 constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
-constexpr uint32_t kPoolStateVersion = 1;
+constexpr uint32_t kPoolStateVersion = 2;  // 2: per-stream frames_applied
 
 void SaveSparse(StateWriter& w, const SparseFeatures& x) {
   w.PutVector(x.index);
@@ -720,6 +727,7 @@ void Pool::SaveState(std::string* out) const {
     for (const ReturnVerifier& v : st.verifiers) v.SaveState(w);
     w.PutVector(st.behavior_counts);
     w.Put(st.feature_gap_frames);
+    w.Put(st.frames_applied);
     for (const std::vector<double>& v : st.regression) w.PutVector(v);
     w.PutVector(st.regression_updates);
   }
@@ -795,7 +803,7 @@ absl::Status Pool::RestoreState(absl::string_view state) {
       if (!v.LoadState(r)) return r.status();
     }
     if (!r.GetVector(&st.behavior_counts, st.behavior_counts.size()) ||
-        !r.Get(&st.feature_gap_frames)) {
+        !r.Get(&st.feature_gap_frames) || !r.Get(&st.frames_applied)) {
       return r.status();
     }
     for (std::vector<double>& v : st.regression) {

@@ -52,6 +52,8 @@ class Pool {
 
   // Last applied seq of `stream`, 0 if the pool has not seen it.
   uint64_t last_seq(absl::string_view stream) const;
+  // Frames of `stream` applied so far (kept across spec changes and checkpoints).
+  uint64_t frames_applied(absl::string_view stream) const;
   bool has_stream(absl::string_view stream) const;
   size_t num_streams() const { return streams_.size(); }
   std::vector<std::string> stream_names() const;
@@ -106,6 +108,7 @@ class Pool {
     std::vector<ReturnVerifier> verifiers;      // per question
     std::vector<uint32_t> behavior_counts;      // (cells + 1) x actions, when estimating
     uint64_t feature_gap_frames = 0;  // frames with a missing feature input
+    uint64_t frames_applied = 0;
     // Successor-table questions (per-stream learning): regression weights w over the
     // table's phi, by question (empty for other questions), and their update counts.
     std::vector<std::vector<double>> regression;

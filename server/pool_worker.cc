@@ -283,7 +283,7 @@ void PoolWorker::Publish(const std::string& stream) {
   auto snapshot = std::make_shared<StreamSnapshot>();
   if (!pool_->GetPredictions(stream, &snapshot->predictions).ok()) return;
   const StreamCounts& c = counts_[stream];
-  snapshot->frames_applied = c.applied;
+  snapshot->frames_applied = pool_->frames_applied(stream);
   snapshot->frames_rejected = c.rejected;
   absl::MutexLock lock(&snapshot_mu_);
   snapshots_[stream] = std::move(snapshot);

@@ -3,13 +3,16 @@
 //   persistence: the cumulant's current value held forever, c_t / (1 - gamma)
 //     (signal and indicator cumulants with gamma < 1);
 //   last week: the return realized one week earlier at the same clock time (rows with
-//     timestamps; wall-clock time for local timestamps).
+//     timestamps; wall-clock time for local timestamps; only when some scored row has
+//     one).
+// It also keeps each question's replay row by row (Series) for `replay --plot`.
 #ifndef BELLWETHER_CLIENT_CLI_REPLAY_SUMMARY_H_
 #define BELLWETHER_CLIENT_CLI_REPLAY_SUMMARY_H_
 
 #include <cstdint>
 #include <optional>
 #include <ostream>
+#include <string>
 #include <vector>
 
 #include "absl/container/flat_hash_map.h"
@@ -27,8 +30,9 @@ class ReplaySummary {
 
   // The CSV's signal columns, in the order of Frame.values (call before OnRow).
   void SetColumns(absl::Span<const std::string> csv_columns);
-  // Feed every replayed row, in order.
-  void OnRow(const v1::Frame& frame);
+  // Feed every replayed row, in order, with the predictions made at it (spec question
+  // order, as replay's row callback gives them; may be empty when only scores are needed).
+  void OnRow(const v1::Frame& frame, absl::Span<const double> predictions = {});
 
   // Writes a table: question, rows scored, RMSE, bias, NRMSE for the question and for
   // each baseline.
@@ -45,6 +49,29 @@ class ReplaySummary {
   // Scores on the rows where every available baseline exists.
   std::vector<QuestionScore> Compute() const;
 
+  // One question's replay, indexed by row - 1 (row = Frame.seq); NaN where a value does
+  // not exist. Every vector has rows() entries.
+  struct QuestionSeries {
+    std::vector<double> predicted;    // the prediction made at the row (NaN if not fed)
+    std::vector<double> realized;     // its realized (verified) return
+    std::vector<double> persistence;  // the persistence baseline (all NaN without one)
+    std::vector<double> last_week;    // the last-week baseline (all NaN without one)
+    std::vector<uint8_t> scored;      // 1 where the row counts in `score`
+    QuestionScore score;              // what Compute() reports for the question
+  };
+  QuestionSeries Series(size_t question) const;
+
+  // How rows were timed: every row's timestamp absolute (Unix), every one wall-clock
+  // (local), or neither (some rows lack one, or the kinds are mixed).
+  enum class TimeKind { kNone, kUnix, kLocal };
+  TimeKind time_kind() const;
+  // Rows fed so far, and each one's timestamp in microseconds (Frame.unix_micros or
+  // Frame.local_micros), if it had one.
+  size_t rows() const { return row_time_.size(); }
+  const std::vector<std::optional<int64_t>>& row_times() const { return row_time_; }
+  uint64_t score_from_row() const { return score_from_; }
+  const Pool& pool() const { return pool_; }
+
  private:
   struct Verified {
     uint64_t seq;
@@ -53,10 +80,12 @@ class ReplaySummary {
   };
   Pool& pool_;
   uint64_t score_from_;
-  std::vector<std::vector<Verified>> verified_;           // per question
-  std::vector<std::optional<int64_t>> row_time_;          // by seq - 1
-  std::vector<std::vector<double>> row_values_;           // by seq - 1: the frame's values
-  std::vector<size_t> signal_column_;                     // pool signal -> CSV column
+  std::vector<std::vector<Verified>> verified_;   // per question
+  std::vector<std::optional<int64_t>> row_time_;  // by seq - 1
+  size_t unix_rows_ = 0, local_rows_ = 0;         // rows timed each way
+  std::vector<std::vector<double>> row_values_;   // by seq - 1: the frame's values
+  std::vector<double> row_predictions_;           // by (seq - 1) * questions + q
+  std::vector<size_t> signal_column_;             // pool signal -> CSV column
 };
 
 }  // namespace bellwether::cli

@@ -35,6 +35,7 @@
 //       no-op callback), then a full Recover(DIR), in this process. DIR is changed (a torn
 //       tail is cut), so give it a copy.
 #include <fcntl.h>
+#include <malloc.h>
 #include <unistd.h>
 
 #include <algorithm>
@@ -223,9 +224,11 @@ Memory ReadMemory(const std::string& pid) {
 
 Memory SelfMemory() { return ReadMemory("self"); }
 
-// Resets this process's peak RSS (VmHWM) to its current RSS (Linux: clear_refs 5), so the
-// next reading is the peak of the phase that follows.
+// Returns freed heap memory to the system (glibc keeps freed blocks below its mmap
+// threshold resident), then resets this process's peak RSS (VmHWM) to its current RSS
+// (Linux: clear_refs 5), so the next reading is the peak of the phase that follows.
 void ResetPeak() {
+  malloc_trim(0);
   const int fd = open("/proc/self/clear_refs", O_WRONLY | O_CLOEXEC);
   if (fd < 0) return;
   const ssize_t n = write(fd, "5", 1);
@@ -542,16 +545,20 @@ int InProcessCheckpoint(const Options& o) {
   const Memory after_save = SelfMemory();
   const uint64_t state_bytes = state.size();
 
-  // Diagnostic: the same SaveState into a string reserved to the final size (how much of
-  // the time above is the string growing and copying itself).
-  double save_reserved_s = 0;
+  // Diagnostic: the same SaveState into a string reserved to the final size beforehand
+  // (how much of the time above is the string growing and copying itself), then once
+  // more into that string's pages, already faulted in (the copy alone).
+  double save_reserved_s = 0, save_copy_s = 0;
   {
     std::string reserved;
-    reserved.resize(state_bytes);  // faults the pages in before timing
-    reserved.clear();              // keeps the capacity
+    reserved.reserve(state_bytes);
     t0 = SteadyClock::now();
     pool->SaveState(&reserved);
     save_reserved_s = SecondsSince(t0);
+    reserved.clear();  // keeps the capacity
+    t0 = SteadyClock::now();
+    pool->SaveState(&reserved);
+    save_copy_s = SecondsSince(t0);
   }
 
   v1::Checkpoint checkpoint;
@@ -582,6 +589,14 @@ int InProcessCheckpoint(const Options& o) {
   const double encode_s = SecondsSince(t0);
   const Memory encode_mem = SelfMemory();
   const uint64_t encoded_bytes = encoded.size();
+  // The file half of WriteCheckpoint on its own: write, fsync, rename, fsync the directory.
+  t0 = SteadyClock::now();
+  if (absl::Status s = server::WriteFileDurably(o.dir, "bench-copy.bin", encoded); !s.ok()) {
+    std::cerr << "durability_bench: WriteFileDurably: " << s << "\n";
+    return 2;
+  }
+  const double durable_write_s = SecondsSince(t0);
+  std::filesystem::remove(o.dir + "/bench-copy.bin");
   encoded.clear();
   encoded.shrink_to_fit();
 
@@ -600,13 +615,18 @@ int InProcessCheckpoint(const Options& o) {
                          (spec.learning() == v1::PoolSpec::POOLED ? 1 : o.streams));
   std::cout << absl::StrFormat(
       "SaveState: %.3f s, %d bytes (%.1f MiB; %.2f x one float array), RSS %.0f MiB after; "
-      "into a string reserved to that size beforehand: %.3f s\n",
+      "into a string reserved to that size beforehand: %.3f s; again into the same, already "
+      "faulted-in string: %.3f s\n",
       save_s, state_bytes, static_cast<double>(state_bytes) / (1 << 20), arrays,
-      after_save.rss_mib, save_reserved_s);
+      after_save.rss_mib, save_reserved_s, save_copy_s);
   std::cout << absl::StrFormat(
       "EncodeCheckpoint: %.3f s, %d bytes; peak RSS during it %.0f MiB (%.0f MiB before it); "
       "of which alone: Checkpoint::SerializeAsString %.3f s, Crc32c %.3f s\n",
       encode_s, encoded_bytes, encode_mem.peak_mib, after_save.rss_mib, serialize_s, crc_s);
+  std::cout << absl::StrFormat(
+      "WriteFileDurably of those bytes alone (write + fsync + rename + dir fsync): %.3f s "
+      "(%.0f MiB/s)\n",
+      durable_write_s, static_cast<double>(encoded_bytes) / (1 << 20) / durable_write_s);
   std::cout << absl::StrFormat(
       "WriteCheckpoint (encode + write + fsync + rename + dir fsync): %.3f s, %d bytes to %s; "
       "peak RSS during it %.0f MiB\n",
@@ -615,10 +635,12 @@ int InProcessCheckpoint(const Options& o) {
   Result("inproc.state_arrays", arrays);
   Result("inproc.save_s", save_s);
   Result("inproc.save_reserved_s", save_reserved_s);
+  Result("inproc.save_copy_s", save_copy_s);
   Result("inproc.serialize_s", serialize_s);
   Result("inproc.crc_s", crc_s);
   Result("inproc.encode_s", encode_s);
   Result("inproc.write_s", write_s);
+  Result("inproc.durable_write_s", durable_write_s);
   Result("inproc.file_bytes", static_cast<double>(*written));
   Result("inproc.write_peak_mib", std::max(encode_mem.peak_mib, write_mem.peak_mib));
   Result("inproc.rss_before_write_mib", after_save.rss_mib);
@@ -626,8 +648,8 @@ int InProcessCheckpoint(const Options& o) {
   // Load, as recovery does it: read the file, decode, create the pool, restore.
   pool.reset();
   checkpoint = v1::Checkpoint();
-  const Memory before_load = SelfMemory();
   ResetPeak();
+  const Memory before_load = SelfMemory();
   const auto load_start = SteadyClock::now();
   t0 = SteadyClock::now();
   auto bytes = ReadWholeFile(file);
@@ -670,6 +692,7 @@ int InProcessCheckpoint(const Options& o) {
   Result("inproc.restore_s", restore_s);
   Result("inproc.load_s", load_s);
   Result("inproc.load_peak_mib", load_mem.peak_mib);
+  Result("inproc.rss_before_load_mib", before_load.rss_mib);
 
   // The restored pool must hold exactly what was saved (else the figures mean nothing).
   std::string again;
@@ -684,8 +707,8 @@ int InProcessCheckpoint(const Options& o) {
   again.shrink_to_fit();
   restored->reset();
   decoded = v1::Checkpoint();
-  const Memory before_recover = SelfMemory();
   ResetPeak();
+  const Memory before_recover = SelfMemory();
   t0 = SteadyClock::now();
   auto recovered = server::Recover(o.dir);
   const double recover_s = SecondsSince(t0);
@@ -700,6 +723,7 @@ int InProcessCheckpoint(const Options& o) {
       recover_s, recovered->pools.size(), recover_mem.peak_mib, before_recover.rss_mib);
   Result("inproc.recover_s", recover_s);
   Result("inproc.recover_peak_mib", recover_mem.peak_mib);
+  Result("inproc.rss_before_recover_mib", before_recover.rss_mib);
   return same ? 0 : 2;
 }
 

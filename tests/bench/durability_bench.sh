@@ -145,7 +145,11 @@ row() { summary+=("$(printf '%-58s %s' "$1" "$2")"); }
 
 echo "Bellwether durability benchmarks (invented cold-storage rooms, synthetic frames;"
 echo "predictions are advisory, Bellwether is not a safety system)"
-echo "machine: $(nproc) cores, $(awk '/MemTotal/ { printf "%.1f GiB", $2 / 1048576 }' /proc/meminfo) RAM; load average $(cut -d' ' -f1-3 /proc/loadavg)"
+load_start=$(cut -d' ' -f1-3 /proc/loadavg)
+echo "machine: $(nproc) cores, $(awk '/MemTotal/ { printf "%.1f GiB", $2 / 1048576 }' /proc/meminfo) RAM; load average $load_start"
+if awk -v l="${load_start%% *}" -v n="$(nproc)" 'BEGIN { exit !(l > n / 2) }'; then
+  echo "NOTE: the machine is already busy (load average $load_start on $(nproc) cores): figures will be slower and noisier"
+fi
 echo "/tmp is $(fs_type /tmp); work directory $workdir is $(fs_type "$workdir")"
 df -T /tmp "$workdir" | sed 's/^/  /'
 echo
@@ -182,13 +186,14 @@ if [[ $skip != *" checkpoint "* ]]; then
   echo
   row "1. pool" "$questions questions, $(get ck_inproc pool.blocks) blocks, $(get ck_inproc pool.rows) rows, $(getf ck_inproc pool.array_mib 1) MiB per float array ($learning, 1 stream)"
   row "1. in-process: state bytes (SaveState)" "$(mib "$(get ck_inproc inproc.state_bytes)") in $(getf ck_inproc inproc.save_s) s"
-  row "1. in-process: SaveState into a pre-reserved string" "$(getf ck_inproc inproc.save_reserved_s) s"
+  row "1. in-process: SaveState, reserved string / pages warm" "$(getf ck_inproc inproc.save_reserved_s) s / $(getf ck_inproc inproc.save_copy_s) s"
   row "1. in-process: EncodeCheckpoint (serialize / crc alone)" "$(getf ck_inproc inproc.encode_s) s ($(getf ck_inproc inproc.serialize_s) / $(getf ck_inproc inproc.crc_s) s)"
+  row "1. in-process: WriteFileDurably of the encoded bytes" "$(getf ck_inproc inproc.durable_write_s) s"
   row "1. in-process: WriteCheckpoint (encode+write+fsync)" "$(getf ck_inproc inproc.write_s) s, file $(mib "$(get ck_inproc inproc.file_bytes)")"
   row "1. in-process: peak RSS writing (pool+state+copies)" "$(getf ck_inproc inproc.write_peak_mib 0) MiB (pool alone $(getf ck_inproc inproc.rss_after_feed_mib 0) MiB)"
   row "1. in-process: load (read+decode+create+restore)" "$(getf ck_inproc inproc.load_s) s (read $(getf ck_inproc inproc.read_s), decode $(getf ck_inproc inproc.decode_s), restore $(getf ck_inproc inproc.restore_s))"
-  row "1. in-process: Recover() on the directory" "$(getf ck_inproc inproc.recover_s) s, peak RSS $(getf ck_inproc inproc.recover_peak_mib 0) MiB"
-  row "1. in-process: peak RSS loading" "$(getf ck_inproc inproc.load_peak_mib 0) MiB"
+  row "1. in-process: peak RSS loading (RSS before)" "$(getf ck_inproc inproc.load_peak_mib 0) MiB ($(getf ck_inproc inproc.rss_before_load_mib 0) MiB)"
+  row "1. in-process: Recover() on the directory" "$(getf ck_inproc inproc.recover_s) s, peak RSS $(getf ck_inproc inproc.recover_peak_mib 0) MiB ($(getf ck_inproc inproc.rss_before_recover_mib 0) MiB before)"
   row "1. daemon: Checkpoint RPC (client / daemon)" "$(getf ck_daemon daemon.checkpoint_rpc_s) s / $(getf ck_daemon daemon.checkpoint_s) s, $(mib "$(get ck_daemon daemon.checkpoint_bytes)")"
   row "1. daemon: RSS before -> peak after checkpoint" "$(getf ck_daemon daemon.rss_before_mib 0) -> $(getf ck_daemon daemon.peak_after_mib 0) MiB"
   row "1. daemon: restart after kill -9, loaded ... in" "$(printf '%.3f' "$(loaded_s ck2)") s (ready after ${ck_ready_s} s), peak RSS $ck_restart_peak MiB"
@@ -292,5 +297,5 @@ if [[ $skip != *" recovery "* ]]; then
 fi
 
 echo
-echo "=== summary ($(since "$script_start") s in all; command: $0) ==="
+echo "=== summary ($(since "$script_start") s in all; load average at start $load_start, at end $(cut -d' ' -f1-3 /proc/loadavg); command: $0) ==="
 for line in "${summary[@]}"; do echo "$line"; done

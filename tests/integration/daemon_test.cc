@@ -12,6 +12,7 @@
 
 #include "absl/strings/match.h"
 #include "client/bellwether_client.h"
+#include "client/cli/campus_sim.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
 #include "gmock/gmock.h"
@@ -280,11 +281,91 @@ TEST(DaemonCli, DemoRunsABoundedNumberOfSteps) {
   Daemon daemon;
   ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
   auto r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "demo", "--rate",
-                                "100000", "--steps", "800"});
+                                "100000", "--steps", "800", "--status-url",
+                                "http://127.0.0.1:9/"});
   ASSERT_EQ(r.exit_code, 0) << r.err;
   EXPECT_THAT(r.out, HasSubstr("energy_next_12h"));
+  EXPECT_THAT(r.out, HasSubstr("seconds_until_recharge"));
+  EXPECT_THAT(r.out, HasSubstr("p_reach_charger_if_sent"));
+  EXPECT_THAT(r.out, HasSubstr("status page: http://127.0.0.1:9/"));
   EXPECT_THAT(r.out, HasSubstr("not a safety system"));
   EXPECT_THAT(r.out, HasSubstr("demo stopped after 800 steps"));
+
+  // Both pools answer for every stream.
+  auto client = Client::Connect(daemon.address());
+  const cli::DeliveryRobots robots;
+  const cli::CampusBuildings buildings;
+  for (const std::string& b : buildings.names()) {
+    auto p = client->Predict(cli::CampusBuildings::kPool, b);
+    ASSERT_TRUE(p.ok()) << b << ": " << p.status();
+    EXPECT_EQ(p->as_of_seq(), 800u);
+    ASSERT_EQ(p->predictions_size(), 2);
+    EXPECT_EQ(p->predictions(0).question(), "energy_next_12h");
+    EXPECT_GT(p->predictions(0).value(), 0);
+  }
+  for (const std::string& robot : robots.names()) {
+    auto p = client->Predict(cli::DeliveryRobots::kPool, robot);
+    ASSERT_TRUE(p.ok()) << robot << ": " << p.status();
+    EXPECT_EQ(p->as_of_seq(), 800u);
+    ASSERT_EQ(p->predictions_size(), 3);
+    EXPECT_EQ(p->predictions(0).question(), "seconds_until_recharge");
+    EXPECT_EQ(p->predictions(0).unit(), "s");
+    EXPECT_GT(p->predictions(0).verified().count(), 0u);
+    EXPECT_EQ(p->predictions(1).question(), "p_reach_charger");
+    EXPECT_EQ(p->predictions(2).question(), "p_reach_charger_if_sent");
+  }
+
+  // A longer, unpaced run starts afresh (the pools are recreated: every stream has
+  // exactly this run's frames) and verifies each robot's off-policy answers on the
+  // stretches where the robot did head straight back. A frame far ahead in one stream
+  // would make every frame of a run that kept the old pool a duplicate.
+  {
+    auto session = client->OpenIngest(cli::DeliveryRobots::kPool, robots.names()[0], {});
+    ASSERT_TRUE(session.ok()) << session.status();
+    v1::FrameBatch batch;
+    v1::Frame* f = batch.add_frames();
+    f->set_seq(50000);
+    for (double v : {50.0, 100.0, 0.0, 5.0}) f->add_values(v);
+    auto ack = (*session)->Send(batch);
+    ASSERT_TRUE(ack.ok()) << ack.status();
+    ASSERT_EQ(ack->applied_seq(), 50000u);
+    ASSERT_TRUE((*session)->Finish().ok());
+  }
+  r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "demo", "--rate", "0",
+                           "--steps", "3000"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("demo stopped after 3000 steps"));
+  auto d = client->DescribePool(cli::DeliveryRobots::kPool);
+  ASSERT_TRUE(d.ok()) << d.status();
+  ASSERT_EQ(d->streams_size(), static_cast<int>(robots.names().size()));
+  for (const v1::StreamInfo& s : d->streams()) {
+    EXPECT_EQ(s.last_seq(), 3000u) << s.name();
+    EXPECT_EQ(s.frames_applied(), 3000u) << s.name();
+    EXPECT_EQ(s.frames_rejected(), 0u) << s.name();
+  }
+  for (const std::string& robot : robots.names()) {
+    auto p = client->Predict(cli::DeliveryRobots::kPool, robot, absl::Seconds(10),
+                             {"p_reach_charger", "p_reach_charger_if_sent"});
+    ASSERT_TRUE(p.ok()) << robot << ": " << p.status();
+    ASSERT_EQ(p->predictions_size(), 2);
+    const v1::VerifiedError& usual = p->predictions(0).verified();
+    const v1::VerifiedError& sent = p->predictions(1).verified();
+    EXPECT_GT(usual.count(), 1000u) << robot;
+    EXPECT_EQ(sent.mode(), "on-target stretches") << robot;
+    EXPECT_GT(sent.count(), 0u) << robot;
+    // Far fewer than on-policy: only returns during which the robot kept heading back.
+    EXPECT_LT(sent.count(), usual.count()) << robot;
+    EXPECT_GT(sent.unverifiable(), 0u) << robot;
+    // Probability questions carry a calibration table.
+    EXPECT_EQ(sent.calibration_size(), 10) << robot;
+  }
+
+  // Usage errors.
+  r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "demo", "--rate", "-1"});
+  EXPECT_EQ(r.exit_code, 1);
+  r = testing::RunCommand({BW_CLI_PATH, "demo", "--help"});
+  EXPECT_EQ(r.exit_code, 0);
+  EXPECT_THAT(r.out, HasSubstr("example:"));
 }
 
 TEST(Cli, UsageAndLocalInputErrors) {
