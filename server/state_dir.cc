@@ -87,8 +87,19 @@ absl::Status PrepareStateDir(const std::string& dir) {
   return WriteFileDurably(dir, kFormatFile, FormatLine() + "\n");
 }
 
-std::string EncodeCheckpoint(const v1::Checkpoint& checkpoint) {
-  const std::string payload = checkpoint.SerializeAsString();
+absl::StatusOr<std::string> EncodeCheckpoint(const v1::Checkpoint& checkpoint) {
+  const size_t size = checkpoint.ByteSizeLong();
+  constexpr size_t kProtobufLimit = (size_t{1} << 31) - 1;
+  if (size > kProtobufLimit) {
+    return absl::ResourceExhaustedError(absl::StrCat(
+        "checkpoint of ", size, " bytes exceeds the 2 GiB limit of this checkpoint format; "
+        "not written (the log keeps everything; use fewer questions or featureTableSize per "
+        "pool, or POOLED learning)"));
+  }
+  std::string payload;
+  if (!checkpoint.SerializeToString(&payload)) {
+    return absl::InternalError("checkpoint: protobuf serialization failed");
+  }
   std::string out;
   out.reserve(kCheckpointHeader + payload.size());
   Put(&out, kCheckpointMagic, 4);
@@ -139,7 +150,9 @@ absl::StatusOr<v1::Checkpoint> DecodeCheckpoint(absl::string_view bytes) {
 
 absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir,
                                          const v1::Checkpoint& checkpoint) {
-  const std::string bytes = EncodeCheckpoint(checkpoint);
+  absl::StatusOr<std::string> encoded = EncodeCheckpoint(checkpoint);
+  if (!encoded.ok()) return encoded.status();
+  const std::string& bytes = *encoded;
   const std::string name = absl::StrFormat("checkpoint-%020d.bwc", checkpoint.start_lsn());
   if (absl::Status s = WriteFileDurably(dir, name, bytes); !s.ok()) return s;
   const auto all = ListCheckpoints(dir);

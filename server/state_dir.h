@@ -30,13 +30,16 @@ inline constexpr uint32_t kStateFormatVersion = 1;
 // a clear message for another format version or a directory with unknown contents.
 absl::Status PrepareStateDir(const std::string& dir);
 
-// Encodes and decodes a checkpoint file's bytes. Decode never reads out of bounds; it
-// fails with DATA_LOSS naming the offset.
-std::string EncodeCheckpoint(const v1::Checkpoint& checkpoint);
+// Encodes and decodes a checkpoint file's bytes. Encode fails with RESOURCE_EXHAUSTED
+// when the checkpoint exceeds protobuf's 2 GiB message limit (this format's cap on the
+// total learned state of all pools). Decode never reads out of bounds; it fails with
+// DATA_LOSS naming the offset.
+absl::StatusOr<std::string> EncodeCheckpoint(const v1::Checkpoint& checkpoint);
 absl::StatusOr<v1::Checkpoint> DecodeCheckpoint(absl::string_view bytes);
 
 // Writes a checkpoint durably (temp file, fsync, rename, fsync of the directory) and
-// deletes all but the newest two. Returns the file's size.
+// deletes all but the newest two. Returns the file's size. Nothing is written (and the
+// caller must not trim the log) on error.
 absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir, const v1::Checkpoint& checkpoint);
 
 struct RecoveredPool {

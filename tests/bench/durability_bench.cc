@@ -9,8 +9,8 @@
 // Subcommands (each prints readable lines plus machine-readable "@ key value" lines that
 // the script collects into its summary table):
 //
-//   spec [--questions N] [--table N] [--learning per_stream|pooled]
-//       Prints a pool spec as JSON (the large one unless --questions is small).
+//   spec [--questions N] [--table N] [--learning per_stream|pooled] | spec --pool NAME
+//       Prints the large pool's spec as JSON, or with --pool the small one under NAME.
 //   inproc-checkpoint --dir DIR [--questions 1000] [--table 65536] [--frames 3000]
 //                     [--streams 1] [--learning per_stream|pooled]
 //       In one process: creates the pool, feeds frames, then times Pool::SaveState,
@@ -103,6 +103,7 @@ struct Options {
 constexpr char kUsage[] =
     "usage: durability_bench COMMAND [FLAGS]\n"
     "  spec              [--questions N] [--table N] [--learning per_stream|pooled]\n"
+    "                    (or --pool NAME: the small pool of ingest and recovery)\n"
     "  inproc-checkpoint --dir DIR [--questions 1000] [--table 65536] [--frames 3000]\n"
     "                    [--streams 1] [--learning per_stream|pooled]\n"
     "  daemon-checkpoint --server HOST:PORT [--daemon-pid PID] [pool flags as above]\n"
@@ -341,8 +342,8 @@ v1::PoolSpec LargeSpec(int questions, int table, bool pooled) {
     if ((i / kNumGammas) % 2 == 1) q->set_step_rule(v1::SETTLING);
     std::string label;
     SetCumulant(i / (2 * kNumGammas), q, &label);
-    q->set_name(absl::StrFormat("q%04d_%s_g%04d", i, label,
-                                static_cast<int>(std::lround(gamma * 10000))));
+    q->set_name(
+        absl::StrFormat("q%04d_%s_g%04d", i, label, static_cast<int>(std::lround(gamma * 10000))));
   }
   return spec;
 }
@@ -391,8 +392,7 @@ class Room {
     std::normal_distribution<double> noise(0.0, 1.0);
     std::uniform_real_distribution<double> u(0.0, 1.0);
     anomaly_ = 0.995 * anomaly_ + 0.1 * noise(rng_);
-    const double outdoor =
-        2 + 7 * std::sin(2 * 3.141592653589793 * (hour - 9) / 24) + anomaly_;
+    const double outdoor = 2 + 7 * std::sin(2 * 3.141592653589793 * (hour - 9) / 24) + anomaly_;
     const bool working = hour >= 6 && hour < 18;
     if (door_minutes_ > 0) {
       --door_minutes_;
@@ -404,10 +404,9 @@ class Room {
     if (temp_ < setpoint_ - 2) on_ = false;
     temp_ += leak_ * (outdoor - temp_) / 10 + (door ? 0.6 : 0) - (on_ ? cooling_ : 0) +
              0.05 * noise(rng_);
-    const double kw =
-        std::clamp(on_ ? rated_kw_ * (0.9 + 0.004 * (outdoor + 20)) + 2 * noise(rng_)
-                       : 1.5 + 0.2 * noise(rng_),
-                   0.0, 120.0);
+    const double kw = std::clamp(on_ ? rated_kw_ * (0.9 + 0.004 * (outdoor + 20)) + 2 * noise(rng_)
+                                     : 1.5 + 0.2 * noise(rng_),
+                                 0.0, 120.0);
     frame->Clear();
     frame->set_seq(seq_);
     frame->set_unix_micros(kStartMicros + minute * 60 * 1000000);
@@ -460,12 +459,12 @@ void PrintPoolShape(const v1::PoolSpec& spec, const Pool& pool, const std::strin
       "rows (featureTableSize %d); rows x cols over all blocks = %d cells = %.1f MiB per "
       "float array (%s)\n",
       spec.name(), spec.questions_size(),
-      spec.learning() == v1::PoolSpec::POOLED ? "POOLED" : "PER_STREAM", streams, s.blocks,
-      s.rows, spec.feature_table_size(), s.weight_cells, cells_mib,
+      spec.learning() == v1::PoolSpec::POOLED ? "POOLED" : "PER_STREAM", streams, s.blocks, s.rows,
+      spec.feature_table_size(), s.weight_cells, cells_mib,
       spec.learning() == v1::PoolSpec::POOLED ? "one set for the pool" : "per stream");
-  std::cout << absl::StrFormat("verification memory: %.1f MiB per stream\n",
-                               static_cast<double>(pool.verification_memory_bytes(stream)) /
-                                   (1 << 20));
+  std::cout << absl::StrFormat(
+      "verification memory: %.1f MiB per stream\n",
+      static_cast<double>(pool.verification_memory_bytes(stream)) / (1 << 20));
   Result("pool.blocks", static_cast<double>(s.blocks));
   Result("pool.rows", s.rows);
   Result("pool.array_mib", cells_mib);
@@ -585,8 +584,13 @@ int InProcessCheckpoint(const Options& o) {
 
   ResetPeak();
   t0 = SteadyClock::now();
-  std::string encoded = server::EncodeCheckpoint(checkpoint);
+  absl::StatusOr<std::string> encoded_or = server::EncodeCheckpoint(checkpoint);
   const double encode_s = SecondsSince(t0);
+  if (!encoded_or.ok()) {
+    std::cerr << "durability_bench: EncodeCheckpoint: " << encoded_or.status() << "\n";
+    return 2;
+  }
+  std::string encoded = *std::move(encoded_or);
   const Memory encode_mem = SelfMemory();
   const uint64_t encoded_bytes = encoded.size();
   // The file half of WriteCheckpoint on its own: write, fsync, rename, fsync the directory.
@@ -617,8 +621,8 @@ int InProcessCheckpoint(const Options& o) {
       "SaveState: %.3f s, %d bytes (%.1f MiB; %.2f x one float array), RSS %.0f MiB after; "
       "into a string reserved to that size beforehand: %.3f s; again into the same, already "
       "faulted-in string: %.3f s\n",
-      save_s, state_bytes, static_cast<double>(state_bytes) / (1 << 20), arrays,
-      after_save.rss_mib, save_reserved_s, save_copy_s);
+      save_s, state_bytes, static_cast<double>(state_bytes) / (1 << 20), arrays, after_save.rss_mib,
+      save_reserved_s, save_copy_s);
   std::cout << absl::StrFormat(
       "EncodeCheckpoint: %.3f s, %d bytes; peak RSS during it %.0f MiB (%.0f MiB before it); "
       "of which alone: Checkpoint::SerializeAsString %.3f s, Crc32c %.3f s\n",
@@ -667,6 +671,14 @@ int InProcessCheckpoint(const Options& o) {
   }
   bytes->clear();
   bytes->shrink_to_fit();
+  if (decoded->pools_size() != 1) {
+    std::cout << absl::StrFormat(
+        "PROBLEM: the checkpoint file decodes to %d pools, expected 1 (the state was %d "
+        "bytes; protobuf cannot serialize a message over 2 GiB)\n",
+        decoded->pools_size(), state_bytes);
+    ResultText("inproc.roundtrip", "LOST");
+    return 2;
+  }
   t0 = SteadyClock::now();
   auto restored = Pool::Create(decoded->pools(0).spec());
   const double recreate_s = SecondsSince(t0);
@@ -873,8 +885,7 @@ int DaemonCheckpoint(const Options& o) {
       "Checkpoint RPC: %.3f s at the client, %.3f s in the daemon; %d pools, %d bytes "
       "(%.1f MiB) to %s; daemon RSS %.0f MiB after, peak %.0f MiB\n",
       rpc_s, done->seconds(), done->pools(), done->bytes(),
-      static_cast<double>(done->bytes()) / (1 << 20), done->file(), after.rss_mib,
-      after.peak_mib);
+      static_cast<double>(done->bytes()) / (1 << 20), done->file(), after.rss_mib, after.peak_mib);
   Result("daemon.checkpoint_rpc_s", rpc_s);
   Result("daemon.checkpoint_s", done->seconds());
   Result("daemon.checkpoint_bytes", static_cast<double>(done->bytes()));
@@ -968,8 +979,8 @@ int CheckpointStall(const Options& o) {
       "acknowledged during it (%.0f frames/s); longest ack gap %.3f s, from %.3f s after the "
       "RPC began\n",
       o.batch, pool, stream, frames_before / rpc_start, 1000 * median_quiet, rpc_end - rpc_start,
-      done->seconds(), done->bytes(), frames_during, frames_during / (rpc_end - rpc_start),
-      max_gap, max_gap_at - rpc_start);
+      done->seconds(), done->bytes(), frames_during, frames_during / (rpc_end - rpc_start), max_gap,
+      max_gap_at - rpc_start);
   Result("stall.rpc_s", rpc_end - rpc_start);
   Result("stall.max_gap_s", max_gap);
   Result("stall.median_gap_ms", 1000 * median_quiet);
@@ -1097,9 +1108,9 @@ int PrintSpec(const Options& o) {
   std::string json;
   google::protobuf::util::JsonPrintOptions print;
   print.add_whitespace = true;
-  const v1::PoolSpec spec = o.questions <= 10 && o.pool.empty()
-                                ? SmallSpec("coldstore-small")
-                                : LargeSpec(o.questions, o.table, o.learning == "pooled");
+  // --pool NAME prints the small pool (ingest and recovery) under that name.
+  const v1::PoolSpec spec =
+      !o.pool.empty() ? SmallSpec(o.pool) : LargeSpec(o.questions, o.table, o.learning == "pooled");
   const auto status = google::protobuf::util::MessageToJsonString(spec, &json, print);
   if (!status.ok()) {
     std::cerr << "durability_bench: " << status.ToString() << "\n";

@@ -217,6 +217,26 @@ TEST(StateDir, TornTailIsCutSoTheNextStartIsClean) {
   EXPECT_EQ(Read(wal), good);  // cut back to the whole records
 }
 
+// Protobuf cannot hold a message over 2 GiB: such a checkpoint is refused, never written
+// as an empty file that recovery would take for a valid one.
+TEST(StateDir, CheckpointOverTheFormatLimitIsRefusedNotWrittenEmpty) {
+  const std::string dir = testing::MakeTempDir("too_big");
+  ASSERT_TRUE(PrepareStateDir(dir).ok());
+  v1::Checkpoint c;
+  c.set_format_version(kStateFormatVersion);
+  for (int i = 0; i < 3; ++i) {
+    v1::PoolCheckpoint* p = c.add_pools();
+    p->mutable_spec()->set_name("big" + std::to_string(i));
+    p->mutable_state()->assign(size_t{800} << 20, '\x01');  // 3 x 800 MiB
+  }
+  auto written = WriteCheckpoint(dir, c);
+  EXPECT_EQ(written.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(written.status().message(), HasSubstr("2 GiB"));
+  for (const auto& e : std::filesystem::directory_iterator(dir)) {
+    EXPECT_NE(e.path().extension(), ".bwc") << "a checkpoint file was written";
+  }
+}
+
 TEST(StateDir, ForeignFormatIsRefused) {
   const std::string dir = testing::MakeTempDir("format");
   Write(dir + "/FORMAT", "bellwether state format 7\n");
