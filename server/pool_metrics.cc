@@ -51,32 +51,23 @@ PoolMetrics::~PoolMetrics() {
   for (auto& [reason, counter] : refused_) refused_family_.Remove(counter);
 }
 
-void PoolMetrics::BatchRefused(const std::string& reason) {
-  prometheus::Counter* c;
-  {
-    absl::MutexLock lock(&mu_);
-    auto it = refused_.find(reason);
-    if (it == refused_.end()) {
-      it = refused_.emplace(reason, &refused_family_.Add({{"pool", pool_}, {"reason", reason}}))
-               .first;
-    }
-    c = it->second;
+prometheus::Counter& PoolMetrics::ByReason(
+    absl::flat_hash_map<std::string, prometheus::Counter*>& counters,
+    prometheus::Family<prometheus::Counter>& family, const std::string& reason) {
+  absl::MutexLock lock(&mu_);
+  auto it = counters.find(reason);
+  if (it == counters.end()) {
+    it = counters.emplace(reason, &family.Add({{"pool", pool_}, {"reason", reason}})).first;
   }
-  c->Increment();
+  return *it->second;
+}
+
+void PoolMetrics::BatchRefused(const std::string& reason) {
+  ByReason(refused_, refused_family_, reason).Increment();
 }
 
 void PoolMetrics::FrameRejected(const std::string& reason) {
-  prometheus::Counter* c;
-  {
-    absl::MutexLock lock(&mu_);
-    auto it = rejected_.find(reason);
-    if (it == rejected_.end()) {
-      it = rejected_.emplace(reason, &rejected_family_.Add({{"pool", pool_}, {"reason", reason}}))
-               .first;
-    }
-    c = it->second;
-  }
-  c->Increment();
+  ByReason(rejected_, rejected_family_, reason).Increment();
 }
 
 }  // namespace bellwether::server

@@ -36,6 +36,11 @@ class PoolMetrics {
   void BatchRefused(const std::string& reason);
 
  private:
+  // The counter of `reason` in `counters` (created in `family` on first use).
+  prometheus::Counter& ByReason(absl::flat_hash_map<std::string, prometheus::Counter*>& counters,
+                                prometheus::Family<prometheus::Counter>& family,
+                                const std::string& reason);
+
   const std::string pool_;
   prometheus::Family<prometheus::Counter>& received_family_;
   prometheus::Family<prometheus::Counter>& applied_family_;

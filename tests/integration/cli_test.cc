@@ -48,6 +48,7 @@
 #include "gtest/gtest.h"
 #include "server/state_dir.h"
 #include "tests/integration/daemon_process.h"
+#include "tests/integration/learned_state.h"
 #include "tests/test_util.h"
 
 namespace bellwether {
@@ -254,54 +255,9 @@ uint64_t LastSeq(Client& client, const std::string& pool = "grid") {
   return d->streams(0).last_seq();
 }
 
-// The frames of the demand CSV, as the CLI reads them.
-std::vector<v1::Frame> DemandFrames() {
-  std::vector<v1::Frame> out;
-  auto reader = CsvFrameReader::Open(DemandPath());
-  EXPECT_TRUE(reader.ok());
-  if (!reader.ok()) return out;
-  v1::Frame f;
-  while (true) {
-    auto more = (*reader)->Next(&f);
-    if (!more.ok() || !*more) break;
-    out.push_back(f);
-  }
-  return out;
-}
-
-// The state the daemon should hold after the first `count` frames: an in-process pool
-// fed the same frames (as in durability_test.cc).
-std::string ReferenceState(const v1::PoolSpec& spec, const std::vector<v1::Frame>& frames,
-                           size_t count) {
-  auto pool = Pool::Create(spec);
-  EXPECT_TRUE(pool.ok());
-  auto columns = ColumnMap::Create((*pool)->spec().signal_names, {"demand_mw"});
-  EXPECT_TRUE(columns.ok());
-  std::vector<double> buffer;
-  FrameInput input;
-  for (size_t i = 0; i < count; ++i) {
-    EXPECT_TRUE(FrameFromProto(frames[i], *columns, &buffer, &input).ok());
-    EXPECT_TRUE((*pool)->Apply("uk", input).ok());
-  }
-  std::string state;
-  (*pool)->SaveState(&state);
-  return state;
-}
-
-// The daemon's learned state of pool `grid`, read back from a checkpoint it writes now.
-std::string DaemonState(Client& client) {
-  auto done = client.Checkpoint();
-  EXPECT_TRUE(done.ok()) << done.status();
-  if (!done.ok()) return "";
-  auto c = server::DecodeCheckpoint(ReadText(done->file()));
-  EXPECT_TRUE(c.ok()) << c.status();
-  if (!c.ok()) return "";
-  for (const v1::PoolCheckpoint& p : c->pools()) {
-    if (p.spec().name() == "grid") return p.state();
-  }
-  ADD_FAILURE() << "pool grid not in the checkpoint";
-  return "";
-}
+using testing::DaemonState;
+using testing::DemandFrames;
+using testing::ReferenceState;
 
 // The last row's predictions of an in-process replay of `csv` (bellwether replay's engine).
 std::vector<double> ReplayLastPredictions(const v1::PoolSpec& spec, const std::string& csv) {

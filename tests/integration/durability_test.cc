@@ -23,6 +23,7 @@
 #include "gtest/gtest.h"
 #include "server/state_dir.h"
 #include "tests/integration/daemon_process.h"
+#include "tests/integration/learned_state.h"
 
 namespace bellwether {
 namespace {
@@ -30,40 +31,9 @@ namespace {
 using ::testing::HasSubstr;
 
 std::string SpecPath() { return std::string(BW_TEST_DATA_DIR) + "/../../deploy/examples/grid.json"; }
-std::string DemandPath() {
-  return std::string(BW_SHARED_DATA_DIR) + "/halfhourly-demand-2000.csv";
-}
 
-std::vector<v1::Frame> DemandFrames() {
-  std::vector<v1::Frame> out;
-  auto reader = CsvFrameReader::Open(DemandPath());
-  EXPECT_TRUE(reader.ok());
-  v1::Frame f;
-  while (true) {
-    auto more = (*reader)->Next(&f);
-    if (!more.ok() || !*more) break;
-    out.push_back(f);
-  }
-  return out;
-}
-
-// The state the daemon should hold after `frames`: an in-process pool fed the same frames.
-std::string ReferenceState(const v1::PoolSpec& spec, const std::vector<v1::Frame>& frames,
-                           size_t count) {
-  auto pool = Pool::Create(spec);
-  EXPECT_TRUE(pool.ok());
-  auto columns = ColumnMap::Create((*pool)->spec().signal_names, {"demand_mw"});
-  EXPECT_TRUE(columns.ok());
-  std::vector<double> buffer;
-  FrameInput input;
-  for (size_t i = 0; i < count; ++i) {
-    EXPECT_TRUE(FrameFromProto(frames[i], *columns, &buffer, &input).ok());
-    EXPECT_TRUE((*pool)->Apply("uk", input).ok());
-  }
-  std::string state;
-  (*pool)->SaveState(&state);
-  return state;
-}
+using testing::DemandFrames;
+using testing::ReferenceState;
 
 // A long deterministic sequence: the demand series four times over, each copy eight
 // weeks later than the one before, seqs continuing.
@@ -83,22 +53,9 @@ std::vector<v1::Frame> LongSequence() {
   return out;
 }
 
-// The daemon's state of pool `grid`, read back from a checkpoint it writes on request.
-std::string DaemonState(Client& client, const std::string& dir) {
-  auto done = client.Checkpoint();
-  EXPECT_TRUE(done.ok()) << done.status();
-  if (!done.ok()) return "";
-  std::ifstream in(done->file(), std::ios::binary);
-  std::stringstream buf;
-  buf << in.rdbuf();
-  auto c = server::DecodeCheckpoint(buf.str());
-  EXPECT_TRUE(c.ok()) << c.status() << " in " << dir;
-  if (!c.ok()) return "";
-  for (const v1::PoolCheckpoint& p : c->pools()) {
-    if (p.spec().name() == "grid") return p.state();
-  }
-  ADD_FAILURE() << "pool grid not in the checkpoint";
-  return "";
+// The daemon's state of pool `grid` (`dir` is only for messages).
+std::string DaemonState(Client& client, const std::string& /*dir*/) {
+  return testing::DaemonState(client);
 }
 
 // Streams frames from the stream's durable seq on, in batches of 8, until done or the
