@@ -1,17 +1,23 @@
 #include "core/io/spec_json.h"
 
 #include <cerrno>
+#include <cctype>
 #include <cstring>
 #include <fstream>
 #include <sstream>
 
 #include "absl/strings/str_cat.h"
+#include "core/io/json_syntax.h"
 #include "core/status_macros.h"
 #include "google/protobuf/util/json_util.h"
 
 namespace bellwether {
 
 absl::StatusOr<v1::PoolSpec> PoolSpecFromJson(absl::string_view json) {
+  // Syntax first, so an error names its line and column.
+  if (absl::Status s = CheckJsonSyntax(json); !s.ok()) {
+    return absl::InvalidArgumentError(absl::StrCat("pool spec JSON: ", s.message()));
+  }
   v1::PoolSpec spec;
   google::protobuf::util::JsonParseOptions options;
   options.ignore_unknown_fields = false;
