@@ -529,7 +529,7 @@ TEST_F(CliTest, StreamNamesAMissingFileAndABadRow) {
 }
 
 // `apply` reports a malformed spec with the file and what the JSON parser says.
-TEST_F(CliTest, ApplyNamesTheFileAndTheParserErrorOfABadSpec) {
+TEST_F(CliTest, ApplyNamesTheFileLineAndColumnOfABadSpec) {
   const std::string spec = testing::MakeTempDir("badspec") + "/bad.json";
   {
     std::ofstream out(spec);
@@ -537,8 +537,8 @@ TEST_F(CliTest, ApplyNamesTheFileAndTheParserErrorOfABadSpec) {
   }
   const auto r = Cli({"--server", server_, "apply", spec});
   EXPECT_EQ(r.exit_code, 1);
-  EXPECT_THAT(r.err, HasSubstr(spec + ": pool spec JSON:"));
-  EXPECT_THAT(r.err, HasSubstr("Expected , or }"));
+  EXPECT_THAT(r.err, HasSubstr(spec + ": pool spec JSON: line 3, column 16: expected ',' or "
+                                      "'}' after a value"));
   auto pools = client_->ListPools();
   ASSERT_TRUE(pools.ok());
   EXPECT_EQ(pools->pools_size(), 1) << "nothing applied";
