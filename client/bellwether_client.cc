@@ -71,14 +71,28 @@ absl::Status IngestSession::Finish() {
 }
 
 std::unique_ptr<Client> Client::Connect(const std::string& target) {
+  return Connect(target, ClientOptions());
+}
+
+std::unique_ptr<Client> Client::Connect(const std::string& target, const ClientOptions& options) {
+  std::shared_ptr<grpc::ChannelCredentials> credentials = grpc::InsecureChannelCredentials();
+  if (options.tls) {
+    grpc::SslCredentialsOptions ssl;
+    ssl.pem_root_certs = options.tls_root_certs_pem;
+    ssl.pem_cert_chain = options.tls_client_cert_pem;
+    ssl.pem_private_key = options.tls_client_key_pem;
+    credentials = grpc::SslCredentials(ssl);
+  }
   grpc::ChannelArguments args;
+  if (!options.tls_server_name.empty()) {
+    args.SetSslTargetNameOverride(options.tls_server_name);
+  }
   // A restarted daemon is found again within a couple of seconds (gRPC's default backoff
   // grows to two minutes).
   args.SetInt(GRPC_ARG_INITIAL_RECONNECT_BACKOFF_MS, 100);
   args.SetInt(GRPC_ARG_MIN_RECONNECT_BACKOFF_MS, 100);
   args.SetInt(GRPC_ARG_MAX_RECONNECT_BACKOFF_MS, 2000);
-  return std::unique_ptr<Client>(new Client(
-      grpc::CreateCustomChannel(target, grpc::InsecureChannelCredentials(), args)));
+  return std::unique_ptr<Client>(new Client(grpc::CreateCustomChannel(target, credentials, args)));
 }
 
 Client::Client(std::shared_ptr<grpc::Channel> channel)

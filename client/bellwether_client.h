@@ -78,6 +78,17 @@ class WatchSession {
 
 class Client;
 
+// How a Client reaches the daemon.
+struct ClientOptions {
+  // Plaintext unless `tls` is set (the daemon serves plaintext on 127.0.0.1 or a private
+  // network until it has TLS; these options are ready for then).
+  bool tls = false;
+  std::string tls_root_certs_pem;   // empty: the system's roots
+  std::string tls_client_cert_pem;  // with the key: mutual TLS
+  std::string tls_client_key_pem;
+  std::string tls_server_name;      // overrides the name checked in the certificate
+};
+
 // An ingest stream that survives daemon restarts and broken connections: it keeps every
 // frame it sent until the daemon reports it durable, and when a call breaks
 // (UNAVAILABLE, RESOURCE_EXHAUSTED, CANCELLED, DEADLINE_EXCEEDED, or FAILED_PRECONDITION
@@ -133,8 +144,9 @@ struct IngestOptions {
 
 class Client {
  public:
-  // Connects lazily (plaintext) to `target` ("HOST:PORT").
+  // Connects lazily to `target` ("HOST:PORT"), plaintext or with `options`.
   static std::unique_ptr<Client> Connect(const std::string& target);
+  static std::unique_ptr<Client> Connect(const std::string& target, const ClientOptions& options);
 
   // Creates or updates the pool (unchanged questions keep their learned state) and says
   // what changed; with `dry_run`, only validates and reports.

@@ -16,6 +16,7 @@
 #include "gtest/gtest.h"
 #include "grpc/health/v1/health.grpc.pb.h"
 #include "tests/integration/daemon_process.h"
+#include "tests/test_util.h"
 
 namespace bellwether {
 namespace {
@@ -331,6 +332,26 @@ TEST_F(RpcSurfaceTest, WatchSendsFreshAnswersAndCoalesces) {
   ASSERT_TRUE(w3.ok());
   EXPECT_FALSE((*w3)->Next(&next));
   EXPECT_EQ((*w3)->Finish().code(), absl::StatusCode::kNotFound);
+}
+
+// The README's client example against the daemon; and a TLS client against this
+// plaintext daemon fails cleanly (the option is wired; the handshake cannot succeed).
+TEST_F(RpcSurfaceTest, ClientExampleProgramAndTlsOption) {
+  StreamDemand("uk", 400);
+  const auto r = testing::RunCommand({BW_FORECAST_READER_PATH, daemon_.address(), "grid", "uk"});
+  ASSERT_EQ(r.exit_code, 0) << r.err;
+  EXPECT_THAT(r.out, HasSubstr("demand_next_12h"));
+  EXPECT_THAT(r.out, HasSubstr("+/- "));
+  EXPECT_THAT(r.out, HasSubstr("seq 400"));
+  const auto missing = testing::RunCommand({BW_FORECAST_READER_PATH, daemon_.address(), "nope", "uk"});
+  EXPECT_EQ(missing.exit_code, 2);
+  EXPECT_THAT(missing.err, HasSubstr("NOT_FOUND"));
+
+  ClientOptions tls;
+  tls.tls = true;
+  auto secure = Client::Connect(daemon_.address(), tls);
+  auto p = secure->Predict("grid", "uk", absl::Seconds(3));
+  EXPECT_EQ(p.status().code(), absl::StatusCode::kUnavailable) << p.status();
 }
 
 // SIGTERM: health turns NOT_SERVING, an open ingest call ends with UNAVAILABLE, and the
