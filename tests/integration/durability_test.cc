@@ -35,13 +35,13 @@ std::string SpecPath() { return std::string(BW_TEST_DATA_DIR) + "/../../deploy/e
 using testing::DemandFrames;
 using testing::ReferenceState;
 
-// A long deterministic sequence: the demand series four times over, each copy eight
+// A long deterministic sequence: the demand series `copies` times over, each copy eight
 // weeks later than the one before, seqs continuing.
-std::vector<v1::Frame> LongSequence() {
+std::vector<v1::Frame> LongSequence(int copies) {
   const std::vector<v1::Frame> base = DemandFrames();
   std::vector<v1::Frame> out;
   constexpr int64_t kEightWeeksMicros = int64_t{8} * 7 * 24 * 3600 * 1000000;
-  for (int copy = 0; copy < 4; ++copy) {
+  for (int copy = 0; copy < copies; ++copy) {
     for (const v1::Frame& f : base) {
       v1::Frame g = f;
       g.set_seq(out.size() + 1);
@@ -92,8 +92,10 @@ TEST(Durability, CrashLoopLosesNothingAcknowledgedAndEndsBitIdentical) {
   const std::string dir = testing::MakeTempDir("crash_loop");
   auto spec = ReadPoolSpecFile(SpecPath());
   ASSERT_TRUE(spec.ok());
-  const std::vector<v1::Frame> frames = LongSequence();
-  ASSERT_EQ(frames.size(), 4u * 2688u);
+  // Long enough that every kill lands mid-stream (about 5 kills per copy).
+  const int copies = std::max(4, kills / 5);
+  const std::vector<v1::Frame> frames = LongSequence(copies);
+  ASSERT_EQ(frames.size(), static_cast<size_t>(copies) * 2688u);
 
   std::mt19937 rng(2026);
   std::uniform_int_distribution<int> delay_ms(5, 100);
