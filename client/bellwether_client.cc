@@ -92,7 +92,14 @@ std::unique_ptr<Client> Client::Connect(const std::string& target, const ClientO
   args.SetInt(GRPC_ARG_INITIAL_RECONNECT_BACKOFF_MS, 100);
   args.SetInt(GRPC_ARG_MIN_RECONNECT_BACKOFF_MS, 100);
   args.SetInt(GRPC_ARG_MAX_RECONNECT_BACKOFF_MS, 2000);
-  return std::unique_ptr<Client>(new Client(grpc::CreateCustomChannel(target, credentials, args)));
+  std::unique_ptr<Client> client(new Client(grpc::CreateCustomChannel(target, credentials, args)));
+  client->bearer_token_ = options.bearer_token;
+  return client;
+}
+
+void Client::Prepare(grpc::ClientContext* context, absl::Duration timeout) const {
+  if (timeout != absl::InfiniteDuration()) SetDeadline(context, timeout);
+  if (!bearer_token_.empty()) context->AddMetadata("authorization", "Bearer " + bearer_token_);
 }
 
 Client::Client(std::shared_ptr<grpc::Channel> channel)
@@ -101,7 +108,7 @@ Client::Client(std::shared_ptr<grpc::Channel> channel)
 absl::StatusOr<v1::ApplyPoolResponse> Client::ApplyPool(const v1::PoolSpec& spec, bool dry_run,
                                                         absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::ApplyPoolRequest request;
   *request.mutable_spec() = spec;
   request.set_dry_run(dry_run);
@@ -136,6 +143,7 @@ absl::StatusOr<std::unique_ptr<IngestSession>> Client::OpenIngest(
     IngestOptions options) {
   std::unique_ptr<IngestSession> session(new IngestSession());
   session->context_ = std::make_unique<grpc::ClientContext>();
+  Prepare(session->context_.get(), absl::InfiniteDuration());
   session->stream_ = stub_->Ingest(session->context_.get());
   v1::IngestRequest request;
   request.mutable_open()->set_pool(pool);
@@ -246,7 +254,7 @@ absl::StatusOr<v1::StreamPredictions> Client::Predict(const std::string& pool,
                                                       absl::Duration timeout,
                                                       const std::vector<std::string>& questions) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::PredictRequest request;
   request.set_pool(pool);
   request.set_stream(stream);
@@ -260,7 +268,7 @@ absl::StatusOr<v1::StreamPredictions> Client::Predict(const std::string& pool,
 absl::StatusOr<v1::PredictBatchResponse> Client::PredictBatch(
     const v1::PredictBatchRequest& request, absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::PredictBatchResponse response;
   const grpc::Status s = stub_->PredictBatch(&context, request, &response);
   if (!s.ok()) return FromGrpc(s);
@@ -271,7 +279,7 @@ absl::StatusOr<v1::ProgressResponse> Client::Progress(const std::string& pool,
                                                       const std::string& stream,
                                                       absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::ProgressRequest request;
   request.set_pool(pool);
   request.set_stream(stream);
@@ -284,7 +292,7 @@ absl::StatusOr<v1::ProgressResponse> Client::Progress(const std::string& pool,
 absl::StatusOr<v1::PoolDescription> Client::DescribePool(const std::string& pool,
                                                          absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::DescribePoolRequest request;
   request.set_pool(pool);
   v1::PoolDescription response;
@@ -295,7 +303,7 @@ absl::StatusOr<v1::PoolDescription> Client::DescribePool(const std::string& pool
 
 absl::StatusOr<v1::ListPoolsResponse> Client::ListPools(absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::ListPoolsResponse response;
   const grpc::Status s = stub_->ListPools(&context, v1::ListPoolsRequest(), &response);
   if (!s.ok()) return FromGrpc(s);
@@ -304,7 +312,7 @@ absl::StatusOr<v1::ListPoolsResponse> Client::ListPools(absl::Duration timeout) 
 
 absl::Status Client::DeletePool(const std::string& pool, absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::DeletePoolRequest request;
   request.set_pool(pool);
   v1::DeletePoolResponse response;
@@ -313,7 +321,7 @@ absl::Status Client::DeletePool(const std::string& pool, absl::Duration timeout)
 
 absl::StatusOr<v1::CheckpointResponse> Client::Checkpoint(absl::Duration timeout) {
   grpc::ClientContext context;
-  SetDeadline(&context, timeout);
+  Prepare(&context, timeout);
   v1::CheckpointResponse response;
   const grpc::Status s = stub_->Checkpoint(&context, v1::CheckpointRequest(), &response);
   if (!s.ok()) return FromGrpc(s);
@@ -323,6 +331,7 @@ absl::StatusOr<v1::CheckpointResponse> Client::Checkpoint(absl::Duration timeout
 absl::StatusOr<std::unique_ptr<WatchSession>> Client::Watch(const v1::WatchRequest& request) {
   std::unique_ptr<WatchSession> session(new WatchSession());
   session->context_ = std::make_unique<grpc::ClientContext>();
+  Prepare(session->context_.get(), absl::InfiniteDuration());
   session->reader_ = stub_->Watch(session->context_.get(), request);
   return session;
 }

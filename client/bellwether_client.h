@@ -87,6 +87,8 @@ struct ClientOptions {
   std::string tls_client_cert_pem;  // with the key: mutual TLS
   std::string tls_client_key_pem;
   std::string tls_server_name;      // overrides the name checked in the certificate
+  // Sent as 'authorization: Bearer TOKEN' on every call (daemons with --token-file).
+  std::string bearer_token;
 };
 
 // An ingest stream that survives daemon restarts and broken connections: it keeps every
@@ -180,6 +182,9 @@ class Client {
 
  private:
   explicit Client(std::shared_ptr<grpc::Channel> channel);
+  // Deadline (if finite) and credentials metadata for one call.
+  void Prepare(grpc::ClientContext* context, absl::Duration timeout) const;
+  std::string bearer_token_;
   std::shared_ptr<grpc::Channel> channel_;
   std::unique_ptr<v1::Bellwether::Stub> stub_;
 };

@@ -10,6 +10,7 @@ packages=(
   libgtest-dev libgmock-dev libbenchmark-dev
   tzdata python3-numpy
   libcivetweb-dev chromium prometheus python3-grpcio python3-grpc-tools
+  libssl-dev openssl
 )
 
 missing=()

@@ -167,6 +167,9 @@ class BellwetherService::IngestReactor
                           "open: the first message of an ingest stream must name pool and stream");
     }
     const v1::IngestOpen& open = request_.open();
+    if (grpc::Status a = service_->Authorize(*context_, Scope::kIngest, open.pool()); !a.ok()) {
+      return a;
+    }
     if (auto s = RequirePool(open.pool(), "open.pool"); !s.ok()) return ToGrpc(s);
     if (auto s = ValidateStreamName(open.stream(), "open.stream"); !s.ok()) return ToGrpc(s);
     auto worker = service_->registry_->Find(open.pool());
@@ -311,8 +314,9 @@ class BellwetherService::IngestReactor
 
 class BellwetherService::WatchReactor : public grpc::ServerWriteReactor<v1::StreamPredictions> {
  public:
-  WatchReactor(BellwetherService* service, const v1::WatchRequest& request)
-      : service_(service), request_(request) {
+  WatchReactor(BellwetherService* service, const grpc::CallbackServerContext* context,
+               const v1::WatchRequest& request)
+      : service_(service), context_(context), request_(request) {
     service_->Register(this);
     grpc::Status s = Start();
     if (!s.ok()) {
@@ -374,6 +378,9 @@ class BellwetherService::WatchReactor : public grpc::ServerWriteReactor<v1::Stre
  private:
   grpc::Status Start() {
     if (grpc::Status g = service_->Gate(); !g.ok()) return g;
+    if (grpc::Status a = service_->Authorize(*context_, Scope::kRead, request_.pool()); !a.ok()) {
+      return a;
+    }
     if (auto s = RequirePool(request_.pool(), "pool"); !s.ok()) return ToGrpc(s);
     if (auto s = ValidateStreamName(request_.stream(), "stream"); !s.ok()) return ToGrpc(s);
     const uint32_t ms =
@@ -401,6 +408,7 @@ class BellwetherService::WatchReactor : public grpc::ServerWriteReactor<v1::Stre
   }
 
   BellwetherService* const service_;
+  const grpc::CallbackServerContext* const context_;
   const v1::WatchRequest request_;
   absl::Mutex mu_;
   std::shared_ptr<PoolWorker> worker_;
@@ -459,6 +467,12 @@ void BellwetherService::WatchLoop() {
   }
 }
 
+grpc::Status BellwetherService::Authorize(const grpc::ServerContextBase& context, Scope scope,
+                                          const std::string& pool) const {
+  if (auth_ == nullptr) return grpc::Status::OK;
+  return ToGrpc(auth_->Check(context, scope, pool));
+}
+
 grpc::Status BellwetherService::Gate() const {
   if (loading_.load()) return kLoading;
   if (draining_.load()) return kDraining;
@@ -469,6 +483,7 @@ grpc::ServerUnaryReactor* BellwetherService::Checkpoint(grpc::CallbackServerCont
                                                         const v1::CheckpointRequest*,
                                                         v1::CheckpointResponse* response) {
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kAdmin, ""); !a.ok()) return Done(context, a);
   if (checkpointer_ == nullptr) {
     return Done(context, grpc::Status(grpc::StatusCode::FAILED_PRECONDITION,
                                       "bellwetherd runs without --state-dir: nothing to "
@@ -502,6 +517,7 @@ grpc::ServerUnaryReactor* BellwetherService::ApplyPool(grpc::CallbackServerConte
                                                        const v1::ApplyPoolRequest* request,
                                                        v1::ApplyPoolResponse* response) {
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kAdmin, ""); !a.ok()) return Done(context, a);
   if (Expired(context)) return Done(context, kExpired);
   if (!request->has_spec()) {
     return Done(context, grpc::Status(grpc::StatusCode::INVALID_ARGUMENT, "spec: required"));
@@ -516,6 +532,7 @@ grpc::ServerUnaryReactor* BellwetherService::DescribePool(grpc::CallbackServerCo
                                                           const v1::DescribePoolRequest* request,
                                                           v1::PoolDescription* response) {
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kRead, request->pool()); !a.ok()) return Done(context, a);
   if (auto s = RequirePool(request->pool(), "pool"); !s.ok()) return Done(context, ToGrpc(s));
   auto worker = registry_->Find(request->pool());
   if (!worker.ok()) return Done(context, ToGrpc(worker.status()));
@@ -527,7 +544,9 @@ grpc::ServerUnaryReactor* BellwetherService::ListPools(grpc::CallbackServerConte
                                                        const v1::ListPoolsRequest*,
                                                        v1::ListPoolsResponse* response) {
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kRead, ""); !a.ok()) return Done(context, a);
   for (const auto& worker : registry_->All()) {
+    if (auth_ != nullptr && !auth_->Allows(*context, Scope::kRead, worker->name())) continue;
     const auto g = worker->current();
     v1::PoolSummary* p = response->add_pools();
     p->set_name(worker->name());
@@ -542,6 +561,7 @@ grpc::ServerUnaryReactor* BellwetherService::DeletePool(grpc::CallbackServerCont
                                                         const v1::DeletePoolRequest* request,
                                                         v1::DeletePoolResponse*) {
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kAdmin, ""); !a.ok()) return Done(context, a);
   if (Expired(context)) return Done(context, kExpired);
   if (auto s = RequirePool(request->pool(), "pool"); !s.ok()) return Done(context, ToGrpc(s));
   return Done(context, ToGrpc(registry_->Delete(request->pool())));
@@ -595,6 +615,7 @@ grpc::ServerUnaryReactor* BellwetherService::Predict(grpc::CallbackServerContext
                                                      v1::StreamPredictions* response) {
   const auto start = std::chrono::steady_clock::now();
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kRead, request->pool()); !a.ok()) return Done(context, a);
   if (Expired(context)) return Done(context, kExpired);
   const absl::Status s = ReadPredictions(*request, response);
   if (metrics_ != nullptr) metrics_->ObserveRead("Predict", SecondsSince(start));
@@ -606,6 +627,7 @@ grpc::ServerUnaryReactor* BellwetherService::PredictBatch(grpc::CallbackServerCo
                                                           v1::PredictBatchResponse* response) {
   const auto start = std::chrono::steady_clock::now();
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kRead, ""); !a.ok()) return Done(context, a);
   if (Expired(context)) return Done(context, kExpired);
   if (request->requests_size() > kMaxBatchItems) {
     return Done(context, grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
@@ -614,7 +636,10 @@ grpc::ServerUnaryReactor* BellwetherService::PredictBatch(grpc::CallbackServerCo
   }
   for (int i = 0; i < request->requests_size(); ++i) {
     v1::PredictBatchItem* item = response->add_items();
-    const absl::Status s = ReadPredictions(request->requests(i), item->mutable_predictions());
+    absl::Status s = auth_ == nullptr ? absl::OkStatus()
+                                      : auth_->Check(*context, Scope::kRead,
+                                                     request->requests(i).pool());
+    if (s.ok()) s = ReadPredictions(request->requests(i), item->mutable_predictions());
     if (!s.ok()) {
       item->mutable_error()->set_code(static_cast<int32_t>(s.code()));
       item->mutable_error()->set_message(absl::StrCat("requests[", i, "]: ", s.message()));
@@ -625,8 +650,8 @@ grpc::ServerUnaryReactor* BellwetherService::PredictBatch(grpc::CallbackServerCo
 }
 
 grpc::ServerWriteReactor<v1::StreamPredictions>* BellwetherService::Watch(
-    grpc::CallbackServerContext*, const v1::WatchRequest* request) {
-  return new WatchReactor(this, *request);
+    grpc::CallbackServerContext* context, const v1::WatchRequest* request) {
+  return new WatchReactor(this, context, *request);
 }
 
 grpc::ServerUnaryReactor* BellwetherService::Progress(grpc::CallbackServerContext* context,
@@ -634,6 +659,7 @@ grpc::ServerUnaryReactor* BellwetherService::Progress(grpc::CallbackServerContex
                                                       v1::ProgressResponse* response) {
   const auto start = std::chrono::steady_clock::now();
   if (grpc::Status g = Gate(); !g.ok()) return Done(context, g);
+  if (grpc::Status a = Authorize(*context, Scope::kRead, request->pool()); !a.ok()) return Done(context, a);
   if (Expired(context)) return Done(context, kExpired);
   const absl::Status s = ReadProgress(*request, response);
   if (metrics_ != nullptr) metrics_->ObserveRead("Progress", SecondsSince(start));

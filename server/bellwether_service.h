@@ -13,6 +13,7 @@
 #include "absl/synchronization/mutex.h"
 #include "absl/time/time.h"
 #include "bellwether/v1/service.grpc.pb.h"
+#include "server/auth.h"
 #include "server/checkpointer.h"
 #include "server/daemon_metrics.h"
 #include "server/pool_registry.h"
@@ -50,6 +51,8 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   void SetLoading(bool loading) { loading_.store(loading); }
   // Serves the Checkpoint RPC (null: FAILED_PRECONDITION). Set before serving.
   void SetCheckpointer(Checkpointer* c) { checkpointer_ = c; }
+  // Checks bearer tokens on every RPC (null: no authentication). Set before serving.
+  void SetAuth(const TokenAuth* auth) { auth_ = auth; }
   // Waits until every ingest and watch call has ended, or `deadline`. True if all ended.
   bool WaitForStreamsToEnd(absl::Time deadline);
 
@@ -105,6 +108,10 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   std::atomic<bool> draining_{false};
   std::atomic<bool> loading_{false};
   Checkpointer* checkpointer_ = nullptr;
+  const TokenAuth* auth_ = nullptr;
+  // OK without authentication, else the token check for `scope` on `pool`.
+  grpc::Status Authorize(const grpc::ServerContextBase& context, Scope scope,
+                         const std::string& pool) const;
   // UNAVAILABLE while loading or draining, else OK.
   grpc::Status Gate() const;
 

@@ -26,6 +26,12 @@
 #include "server/status_http.h"
 #include "server/http_server.h"
 #include "server/daemon_metrics.h"
+#include "server/auth.h"
+#include "grpcpp/security/server_credentials.h"
+#include "grpcpp/security/tls_certificate_provider.h"
+#include "grpcpp/security/tls_credentials_options.h"
+#include <fstream>
+#include <sstream>
 #include "server/checkpointer.h"
 #include "server/state_dir.h"
 #include "server/wal.h"
@@ -62,8 +68,34 @@ ABSL_FLAG(int32_t, metrics_max_questions, 200,
           "Per-question metric series for at most this many (pool, question) pairs; beyond "
           "it, pool-level aggregates only (bounds label cardinality)");
 
+ABSL_FLAG(std::string, tls_cert, "", "PEM certificate chain: serve gRPC over TLS (with --tls-key)");
+ABSL_FLAG(std::string, tls_key, "", "PEM private key for --tls-cert");
+ABSL_FLAG(std::string, tls_client_ca, "",
+          "PEM CA bundle: require client certificates signed by it (mutual TLS)");
+ABSL_FLAG(int32_t, tls_reload_seconds, 60,
+          "How often the TLS files are re-read (renewed certificates apply to new "
+          "connections; open streams are not dropped)");
+ABSL_FLAG(std::string, token_file, "",
+          "Bearer tokens (NAME SHA256_HEX SCOPES [POOLS] per line; see README Security); "
+          "re-read on SIGHUP. Without it every RPC is allowed, so the daemon only listens on "
+          "loopback unless --insecure-open is given");
+ABSL_FLAG(bool, insecure_open, false,
+          "Allow a non-loopback --listen/--http without a token file (no authentication)");
+
 namespace {
 constexpr char kVersion[] = "0.5.0";
+
+bool IsLoopback(const std::string& host) {
+  return host == "127.0.0.1" || host == "localhost" || host == "[::1]" || host == "::1" ||
+         host.rfind("127.", 0) == 0;
+}
+
+std::string ReadAll(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  std::stringstream b;
+  b << in.rdbuf();
+  return b.str();
+}
 }  // namespace
 
 namespace {
@@ -99,6 +131,7 @@ int Main(int argc, char** argv) {
   sigemptyset(&stop_signals);
   sigaddset(&stop_signals, SIGINT);
   sigaddset(&stop_signals, SIGTERM);
+  sigaddset(&stop_signals, SIGHUP);
   pthread_sigmask(SIG_BLOCK, &stop_signals, nullptr);
 
   const std::string state_dir = absl::GetFlag(FLAGS_state_dir);
@@ -121,6 +154,68 @@ int Main(int argc, char** argv) {
     return 1;
   }
   const std::string host = listen.substr(0, colon);
+  const std::string http_flag = absl::GetFlag(FLAGS_http);
+  const std::string http_host = http_flag.substr(0, http_flag.rfind(':'));
+  const bool open = absl::GetFlag(FLAGS_insecure_open);
+  const std::string token_file = absl::GetFlag(FLAGS_token_file);
+  if (!IsLoopback(host) && token_file.empty() && !open) {
+    std::cerr << "bellwetherd: --listen " << listen << " is not loopback and there is no "
+              << "--token-file: anyone who can reach it could write and read every pool. Give "
+              << "--token-file (and TLS), or --insecure-open to accept that.\n";
+    return 1;
+  }
+  if (!http_flag.empty() && !IsLoopback(http_host) && !open) {
+    std::cerr << "bellwetherd: --http " << http_flag << " is not loopback: the status page and "
+              << "metrics have no authentication; give --insecure-open to accept that.\n";
+    return 1;
+  }
+  std::unique_ptr<bellwether::server::TokenAuth> auth;
+  if (!token_file.empty()) {
+    auto loaded = bellwether::server::TokenAuth::Load(token_file);
+    if (!loaded.ok()) {
+      std::cerr << "bellwetherd: " << loaded.status().message() << "\n";
+      return 1;
+    }
+    auth = *std::move(loaded);
+    std::cerr << "bellwetherd: " << auth->size() << " bearer tokens from " << token_file << "\n";
+  } else {
+    std::cerr << "bellwetherd: no --token-file: every RPC is allowed"
+              << (IsLoopback(host) ? " (loopback only)" : " (--insecure-open)") << "\n";
+  }
+  std::shared_ptr<grpc::ServerCredentials> credentials = grpc::InsecureServerCredentials();
+  const std::string tls_cert = absl::GetFlag(FLAGS_tls_cert), tls_key = absl::GetFlag(FLAGS_tls_key);
+  const std::string client_ca = absl::GetFlag(FLAGS_tls_client_ca);
+  if (tls_cert.empty() != tls_key.empty() || (!client_ca.empty() && tls_cert.empty())) {
+    std::cerr << "bellwetherd: TLS needs both --tls-cert and --tls-key (and --tls-client-ca "
+                 "needs them too)\n";
+    return 1;
+  }
+  if (!tls_cert.empty()) {
+    for (const std::string& f : {tls_cert, tls_key, client_ca}) {
+      if (!f.empty() && ReadAll(f).find("-----BEGIN") == std::string::npos) {
+        std::cerr << "bellwetherd: " << f << ": not a readable PEM file\n";
+        return 1;
+      }
+    }
+    const unsigned reload = static_cast<unsigned>(std::max(1, absl::GetFlag(FLAGS_tls_reload_seconds)));
+    auto provider =
+        client_ca.empty()
+            ? std::make_shared<grpc::experimental::FileWatcherCertificateProvider>(tls_key, tls_cert,
+                                                                                  reload)
+            : std::make_shared<grpc::experimental::FileWatcherCertificateProvider>(
+                  tls_key, tls_cert, client_ca, reload);
+    grpc::experimental::TlsServerCredentialsOptions tls(provider);
+    tls.watch_identity_key_cert_pairs();
+    if (!client_ca.empty()) {
+      tls.watch_root_certs();
+      tls.set_cert_request_type(GRPC_SSL_REQUEST_AND_REQUIRE_CLIENT_CERTIFICATE_AND_VERIFY);
+    } else {
+      tls.set_cert_request_type(GRPC_SSL_DONT_REQUEST_CLIENT_CERTIFICATE);
+    }
+    credentials = grpc::experimental::TlsServerCredentials(tls);
+    std::cerr << "bellwetherd: TLS on (" << (client_ca.empty() ? "server certificate" : "mutual")
+              << "), files re-read every " << reload << " s\n";
+  }
 
   for (const auto& [name, value] :
        {std::pair{"--queue-batches", absl::GetFlag(FLAGS_queue_batches)},
@@ -147,11 +242,12 @@ int Main(int argc, char** argv) {
   bws::PoolRegistry registry(&metrics, worker_options);
   metrics.SetPoolSource(&registry);
   bws::BellwetherService service(&registry, &metrics, bws::BellwetherService::Options());
+  service.SetAuth(auth.get());
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
   grpc::ServerBuilder builder;
   int port = 0;
-  builder.AddListeningPort(listen, grpc::InsecureServerCredentials(), &port);
+  builder.AddListeningPort(listen, credentials, &port);
   builder.RegisterService(&service);
   std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
   if (server == nullptr || port == 0) {
@@ -226,7 +322,20 @@ int Main(int argc, char** argv) {
 
   std::thread waiter([&] {
     int sig = 0;
-    sigwait(&stop_signals, &sig);
+    while (true) {
+      sigwait(&stop_signals, &sig);
+      if (sig != SIGHUP) break;
+      // SIGHUP: re-read the token file (TLS files are re-read on their own schedule).
+      if (auth != nullptr) {
+        const absl::Status s = auth->Reload();
+        std::cerr << "bellwetherd: SIGHUP: "
+                  << (s.ok() ? absl::StrCat("reloaded ", auth->size(), " tokens")
+                             : absl::StrCat("kept the old tokens: ", s.message()))
+                  << "\n";
+      } else {
+        std::cerr << "bellwetherd: SIGHUP: no --token-file to reload\n";
+      }
+    }
     std::cerr << "bellwetherd: signal " << sig << ", shutting down\n";
     // Drain: health NOT_SERVING, new calls UNAVAILABLE, open ingest calls end once their
     // queued batches are applied; then stop with the rest of the grace period.

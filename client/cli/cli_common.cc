@@ -1,6 +1,11 @@
 #include "client/cli/cli_common.h"
 
+#include <cstdlib>
+#include <fstream>
 #include <iostream>
+#include <sstream>
+
+#include "absl/strings/strip.h"
 
 #include "absl/strings/str_cat.h"
 #include "client/bellwether_client.h"
@@ -27,6 +32,16 @@ bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
       }
       if (name == "server") {
         args->server = value;
+      } else if (name == "tls-ca") {
+        args->tls_ca = value;
+      } else if (name == "tls-cert") {
+        args->tls_cert = value;
+      } else if (name == "tls-key") {
+        args->tls_key = value;
+      } else if (name == "tls-server-name") {
+        args->tls_server_name = value;
+      } else if (name == "token-file") {
+        args->token_file = value;
       } else {
         args->flags[name] = value;
       }
@@ -39,6 +54,41 @@ bool ParseArgs(int argc, char** argv, Args* args, std::string* error) {
     }
   }
   return true;
+}
+
+namespace {
+
+std::string ReadFileOrWarn(const std::string& path, const char* what) {
+  std::ifstream in(path, std::ios::binary);
+  if (!in) {
+    std::cerr << "bellwether: " << what << " " << path << ": cannot open\n";
+    return "";
+  }
+  std::stringstream b;
+  b << in.rdbuf();
+  return b.str();
+}
+
+}  // namespace
+
+std::unique_ptr<Client> ConnectClient(const Args& args) {
+  ClientOptions o;
+  if (!args.tls_ca.empty() || !args.tls_cert.empty()) {
+    o.tls = true;
+    if (!args.tls_ca.empty()) o.tls_root_certs_pem = ReadFileOrWarn(args.tls_ca, "--tls-ca");
+    if (!args.tls_cert.empty()) {
+      o.tls_client_cert_pem = ReadFileOrWarn(args.tls_cert, "--tls-cert");
+      o.tls_client_key_pem = ReadFileOrWarn(args.tls_key, "--tls-key");
+    }
+    o.tls_server_name = args.tls_server_name;
+  }
+  if (!args.token_file.empty()) {
+    o.bearer_token = std::string(absl::StripAsciiWhitespace(ReadFileOrWarn(args.token_file,
+                                                                           "--token-file")));
+  } else if (const char* t = std::getenv("BELLWETHER_TOKEN"); t != nullptr) {
+    o.bearer_token = t;
+  }
+  return Client::Connect(args.server, o);
 }
 
 int UsageError(const std::string& message) {

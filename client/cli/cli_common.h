@@ -5,10 +5,12 @@
 
 #include <initializer_list>
 #include <map>
+#include <memory>
 #include <string>
 #include <vector>
 
 #include "absl/status/status.h"
+#include "client/bellwether_client.h"
 
 namespace bellwether::cli {
 
@@ -24,6 +26,9 @@ inline constexpr char kCaution[] =
 
 struct Args {
   std::string server = "127.0.0.1:50151";
+  // Global connection options: --tls-ca, --tls-cert, --tls-key, --tls-server-name, and
+  // --token-file (a file holding the bearer token; or the BELLWETHER_TOKEN variable).
+  std::string tls_ca, tls_cert, tls_key, tls_server_name, token_file;
   std::string command;
   std::map<std::string, std::string> flags;
   std::vector<std::string> positional;
@@ -39,6 +44,10 @@ struct Args {
 // Parses "--name value" and "--name=value" pairs; everything else is positional.
 // Valueless flags: --help, --summary, --dry-run, --follow.
 bool ParseArgs(int argc, char** argv, Args* args, std::string* error);
+
+// A client for `args.server` with the global TLS and token options. A token or TLS file
+// that cannot be read is reported on stderr and `*error` is set (exit kExitUsage).
+std::unique_ptr<Client> ConnectClient(const Args& args);
 
 // Prints "bellwether: MESSAGE (see bellwether --help)" and returns kExitUsage.
 int UsageError(const std::string& message);

@@ -6,6 +6,8 @@
 #include <atomic>
 #include <chrono>
 #include <csignal>
+#include <fstream>
+#include <sstream>
 #include <cstdlib>
 #include <iostream>
 #include <string>
@@ -178,7 +180,7 @@ int Watch(const Args& args) {
   const bool table = !json && isatty(STDOUT_FILENO) == 1;
 
   InstallInterruptHandler();
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto session = client->Watch(request);
   if (!session.ok()) return ServerError(session.status());
   WatchSession* watch = session->get();
@@ -290,7 +292,7 @@ int Progress(const Args& args) {
   }
   bool json = false;
   if (int code = CheckOutput(args, &json); code != kExitOk) return code;
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto r = client->Progress(args.Flag("pool"), args.Flag("stream"));
   if (!r.ok()) return ServerError(r.status());
   if (json) {
@@ -469,7 +471,18 @@ int Health(const Args& args) {
     AppendVarint(service.size(), &request);
     request += service;
   }
-  auto channel = grpc::CreateChannel(args.server, grpc::InsecureChannelCredentials());
+  std::shared_ptr<grpc::ChannelCredentials> credentials = grpc::InsecureChannelCredentials();
+  if (!args.tls_ca.empty()) {
+    std::ifstream in(args.tls_ca, std::ios::binary);
+    std::stringstream pem;
+    pem << in.rdbuf();
+    grpc::SslCredentialsOptions ssl;
+    ssl.pem_root_certs = pem.str();
+    credentials = grpc::SslCredentials(ssl);
+  }
+  grpc::ChannelArguments channel_args;
+  if (!args.tls_server_name.empty()) channel_args.SetSslTargetNameOverride(args.tls_server_name);
+  auto channel = grpc::CreateCustomChannel(args.server, credentials, channel_args);
   grpc::GenericStub stub(channel);
   grpc::ClientContext context;
   context.set_deadline(std::chrono::system_clock::now() + std::chrono::milliseconds(timeout_ms));

@@ -271,7 +271,7 @@ int Stream(const Args& args) {
     return kExitUsage;
   }
 
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   // Without this, a daemon that is not there would be retried by the resuming session
   // for half a minute.
   if (!client->WaitUntilReachable(absl::Seconds(5)).ok()) {

@@ -69,6 +69,10 @@ constexpr char kUsage[] =
     "\n"
     "options:\n"
     "  --server HOST:PORT   daemon address (default 127.0.0.1:50151)\n"
+    "  --tls-ca FILE        connect with TLS, trusting this PEM CA (--tls-server-name NAME\n"
+    "                       to check another name); --tls-cert/--tls-key FILE: mutual TLS\n"
+    "  --token-file FILE    bearer token for a daemon with --token-file (or set\n"
+    "                       BELLWETHER_TOKEN)\n"
     "  --output json        predict, watch, progress, pools, describe and health print\n"
     "                       protobuf JSON, one object per line\n"
     "  COMMAND --help       a command's own help (stream, watch, progress, health,\n"
@@ -89,7 +93,7 @@ int Apply(const Args& args) {
   const bool dry_run = args.flags.count("dry-run") > 0;
   auto spec = ReadPoolSpecFile(args.positional[0]);
   if (!spec.ok()) return UsageError(std::string(spec.status().message()));
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto applied = client->ApplyPool(*spec, dry_run);
   if (!applied.ok()) return ServerError(applied.status());
   const char* would = dry_run ? "would be " : "";
@@ -154,7 +158,7 @@ int Predict(const Args& args) {
   }
   bool json = false;
   if (int code = CheckOutput(args, &json); code != kExitOk) return code;
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto p = client->Predict(pool->second, stream->second);
   if (!p.ok()) return ServerError(p.status());
   if (json) {
@@ -183,7 +187,7 @@ int Pools(const Args& args) {
   if (!args.positional.empty()) return UsageError("pools: takes no arguments");
   bool json = false;
   if (int code = CheckOutput(args, &json); code != kExitOk) return code;
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto list = client->ListPools();
   if (!list.ok()) return ServerError(list.status());
   if (json) {
@@ -218,7 +222,7 @@ int Describe(const Args& args) {
   if (pool == args.flags.end()) return UsageError("describe: expected --pool P");
   bool json = false;
   if (int code = CheckOutput(args, &json); code != kExitOk) return code;
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto d = client->DescribePool(pool->second);
   if (!d.ok()) return ServerError(d.status());
   if (json) {
@@ -245,14 +249,14 @@ int Describe(const Args& args) {
 int Delete(const Args& args) {
   const auto pool = args.flags.find("pool");
   if (pool == args.flags.end()) return UsageError("delete: expected --pool P");
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   if (auto s = client->DeletePool(pool->second); !s.ok()) return ServerError(s);
   std::cout << "pool " << pool->second << " deleted\n";
   return kExitOk;
 }
 
 int CheckpointNow(const Args& args) {
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   auto done = client->Checkpoint();
   if (!done.ok()) return ServerError(done.status());
   std::cout << absl::StrFormat("checkpoint %s: %d pools, %d bytes, %.3f s\n", done->file(),
@@ -456,7 +460,7 @@ int Demo(const Args& args) {
   while (!status_url.empty() && status_url.back() == '/') status_url.pop_back();
   std::signal(SIGINT, [](int) { g_stop = 1; });
   std::signal(SIGTERM, [](int) { g_stop = 1; });
-  auto client = Client::Connect(args.server);
+  auto client = ConnectClient(args);
   if (auto s = client->WaitUntilReachable(absl::Seconds(10)); !s.ok()) return ServerError(s);
 
   CampusBuildings buildings;

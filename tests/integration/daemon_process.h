@@ -74,6 +74,9 @@ class DaemonProcess {
   }
   const std::string& state_dir() const { return state_dir_; }
 
+  // Sends `sig` (e.g. SIGHUP) without waiting.
+  void Signal(int sig) { kill(pid_, sig); }
+
   // Sends SIGTERM (without waiting).
   void Terminate() { kill(pid_, SIGTERM); }
   // Sends SIGTERM (unless already sent) and returns the exit code.

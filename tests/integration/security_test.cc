@@ -1,0 +1,219 @@
+// Security of the real daemon: TLS and mutual TLS with throwaway certificates made by
+// openssl in the test, bearer tokens with each scope (and wrong, missing, other-pool
+// tokens), token reload on SIGHUP, and the loopback-only default without a token file.
+#include <signal.h>
+
+#include <fstream>
+#include <string>
+#include <thread>
+
+#include "client/bellwether_client.h"
+#include "core/io/spec_json.h"
+#include "gmock/gmock.h"
+#include "gtest/gtest.h"
+#include "server/auth.h"
+#include "tests/integration/daemon_process.h"
+#include "tests/test_util.h"
+
+namespace bellwether {
+namespace {
+
+using ::testing::HasSubstr;
+
+std::string GridSpecPath() { return std::string(BW_TEST_DATA_DIR) + "/grid_pool.json"; }
+
+std::string ReadAll(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  std::stringstream b;
+  b << in.rdbuf();
+  return b.str();
+}
+
+// A CA, a server certificate for 127.0.0.1/localhost and a client certificate, all
+// signed by the CA, valid for a day.
+struct Certs {
+  std::string dir;
+  bool ok = false;
+  std::string ca() const { return dir + "/ca.pem"; }
+  std::string server_cert() const { return dir + "/server.pem"; }
+  std::string server_key() const { return dir + "/server.key"; }
+  std::string client_cert() const { return dir + "/client.pem"; }
+  std::string client_key() const { return dir + "/client.key"; }
+};
+
+Certs MakeCerts() {
+  Certs c;
+  c.dir = testing::MakeTempDir("certs");
+  auto run = [&](std::vector<std::string> argv) {
+    const auto r = testing::RunCommand(argv);
+    EXPECT_EQ(r.exit_code, 0) << r.err;
+    return r.exit_code == 0;
+  };
+  std::ofstream(c.dir + "/server.ext") << "subjectAltName=IP:127.0.0.1,DNS:localhost\n";
+  std::ofstream(c.dir + "/client.ext") << "extendedKeyUsage=clientAuth\n";
+  c.ok = run({"/usr/bin/openssl", "req", "-x509", "-newkey", "rsa:2048", "-nodes", "-keyout",
+              c.dir + "/ca.key", "-out", c.ca(), "-days", "1", "-subj", "/CN=bellwether-test-ca"}) &&
+         run({"/usr/bin/openssl", "req", "-newkey", "rsa:2048", "-nodes", "-keyout",
+              c.server_key(), "-out", c.dir + "/server.csr", "-subj", "/CN=localhost"}) &&
+         run({"/usr/bin/openssl", "x509", "-req", "-in", c.dir + "/server.csr", "-CA", c.ca(),
+              "-CAkey", c.dir + "/ca.key", "-CAcreateserial", "-out", c.server_cert(), "-days",
+              "1", "-extfile", c.dir + "/server.ext"}) &&
+         run({"/usr/bin/openssl", "req", "-newkey", "rsa:2048", "-nodes", "-keyout",
+              c.client_key(), "-out", c.dir + "/client.csr", "-subj", "/CN=bellwether-test-client"}) &&
+         run({"/usr/bin/openssl", "x509", "-req", "-in", c.dir + "/client.csr", "-CA", c.ca(),
+              "-CAkey", c.dir + "/ca.key", "-CAcreateserial", "-out", c.client_cert(), "-days",
+              "1", "-extfile", c.dir + "/client.ext"});
+  return c;
+}
+
+TEST(Security, TlsAndMutualTls) {
+  const Certs certs = MakeCerts();
+  ASSERT_TRUE(certs.ok);
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok());
+  {
+    testing::DaemonProcess daemon({"--tls-cert", certs.server_cert(), "--tls-key", certs.server_key()});
+    ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+    ClientOptions tls;
+    tls.tls = true;
+    tls.tls_root_certs_pem = ReadAll(certs.ca());
+    auto secure = Client::Connect(daemon.address(), tls);
+    EXPECT_TRUE(secure->ApplyPool(*spec).ok());
+    auto plain = Client::Connect(daemon.address());
+    EXPECT_EQ(plain->ListPools(absl::Seconds(3)).status().code(), absl::StatusCode::kUnavailable);
+    // A client that does not trust the CA refuses the server.
+    ClientOptions untrusted = tls;
+    untrusted.tls_root_certs_pem = ReadAll(certs.client_cert());
+    EXPECT_FALSE(Client::Connect(daemon.address(), untrusted)->ListPools(absl::Seconds(3)).ok());
+    // The CLI's TLS options.
+    const auto r = testing::RunCommand(
+        {BW_CLI_PATH, "--server", daemon.address(), "--tls-ca", certs.ca(), "pools"});
+    EXPECT_EQ(r.exit_code, 0) << r.err;
+    EXPECT_THAT(r.out, HasSubstr("grid"));
+  }
+  {
+    testing::DaemonProcess daemon({"--tls-cert", certs.server_cert(), "--tls-key",
+                                   certs.server_key(), "--tls-client-ca", certs.ca()});
+    ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+    ClientOptions no_cert;
+    no_cert.tls = true;
+    no_cert.tls_root_certs_pem = ReadAll(certs.ca());
+    EXPECT_FALSE(Client::Connect(daemon.address(), no_cert)->ListPools(absl::Seconds(3)).ok());
+    ClientOptions with_cert = no_cert;
+    with_cert.tls_client_cert_pem = ReadAll(certs.client_cert());
+    with_cert.tls_client_key_pem = ReadAll(certs.client_key());
+    EXPECT_TRUE(Client::Connect(daemon.address(), with_cert)->ApplyPool(*spec).ok());
+    const auto r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "--tls-ca",
+                                        certs.ca(), "--tls-cert", certs.client_cert(),
+                                        "--tls-key", certs.client_key(), "pools"});
+    EXPECT_EQ(r.exit_code, 0) << r.err;
+  }
+}
+
+TEST(Security, BearerTokensScopesPoolsAndReload) {
+  const std::string dir = testing::MakeTempDir("tokens");
+  const std::string file = dir + "/tokens";
+  auto write_tokens = [&](bool with_reader) {
+    std::ofstream out(file);
+    out << "# name sha256 scopes [pools]\n"
+        << "ops " << server::Sha256Hex("admin-secret") << " admin\n"
+        << "meters " << server::Sha256Hex("ingest-secret") << " ingest,read grid\n";
+    if (with_reader) out << "dash " << server::Sha256Hex("read-secret") << " read grid\n";
+  };
+  write_tokens(true);
+  testing::DaemonProcess daemon({"--token-file", file});
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  auto as = [&](const std::string& token) {
+    ClientOptions o;
+    o.bearer_token = token;
+    return Client::Connect(daemon.address(), o);
+  };
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok());
+  v1::PoolSpec other = *spec;
+  other.set_name("annex");
+
+  auto anonymous = Client::Connect(daemon.address());
+  EXPECT_EQ(anonymous->ApplyPool(*spec).status().code(), absl::StatusCode::kUnauthenticated);
+  EXPECT_EQ(as("wrong")->ListPools().status().code(), absl::StatusCode::kUnauthenticated);
+  auto admin = as("admin-secret"), meters = as("ingest-secret"), dash = as("read-secret");
+  ASSERT_TRUE(admin->ApplyPool(*spec).ok());
+  ASSERT_TRUE(admin->ApplyPool(other).ok());
+  // read cannot apply; ingest cannot delete.
+  auto denied = dash->ApplyPool(*spec);
+  EXPECT_EQ(denied.status().code(), absl::StatusCode::kPermissionDenied);
+  EXPECT_THAT(denied.status().message(), HasSubstr("lacks the admin scope"));
+  EXPECT_EQ(meters->DeletePool("grid").code(), absl::StatusCode::kPermissionDenied);
+  // ingest into its pool works; into another pool it does not.
+  v1::FrameBatch batch;
+  v1::Frame* f = batch.add_frames();
+  f->set_seq(1);
+  f->set_local_micros(1800LL * 1000000);
+  f->add_values(25000);
+  auto s = meters->OpenIngest("grid", "uk", {});
+  ASSERT_TRUE(s.ok());
+  EXPECT_TRUE((*s)->Send(batch).ok());
+  auto s2 = meters->OpenIngest("annex", "uk", {});
+  ASSERT_TRUE(s2.ok());
+  EXPECT_EQ((*s2)->Send(batch).status().code(), absl::StatusCode::kPermissionDenied);
+  auto s3 = dash->OpenIngest("grid", "uk", {});
+  ASSERT_TRUE(s3.ok());
+  EXPECT_EQ((*s3)->Send(batch).status().code(), absl::StatusCode::kPermissionDenied);
+  // read sees its pool only.
+  EXPECT_TRUE(dash->Predict("grid", "uk").ok());
+  auto other_pool = dash->Predict("annex", "uk");
+  EXPECT_EQ(other_pool.status().code(), absl::StatusCode::kPermissionDenied);
+  EXPECT_THAT(other_pool.status().message(), HasSubstr("not allowed pool 'annex'"));
+  auto listed = dash->ListPools();
+  ASSERT_TRUE(listed.ok());
+  ASSERT_EQ(listed->pools_size(), 1);
+  EXPECT_EQ(listed->pools(0).name(), "grid");
+  // The CLI with a token file.
+  std::ofstream(dir + "/dash.token") << "read-secret\n";
+  const auto r = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "--token-file",
+                                      dir + "/dash.token", "predict", "--pool", "grid", "--stream",
+                                      "uk"});
+  EXPECT_EQ(r.exit_code, 0) << r.err;
+  // Health needs no token.
+  const auto h = testing::RunCommand({BW_CLI_PATH, "--server", daemon.address(), "health"});
+  EXPECT_EQ(h.exit_code, 0) << h.err;
+
+  // SIGHUP re-reads the file: the reader's token is gone.
+  write_tokens(false);
+  daemon.Signal(SIGHUP);
+  absl::Status after = absl::OkStatus();
+  for (int i = 0; i < 100 && after.ok(); ++i) {
+    std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    after = dash->Predict("grid", "uk").status();
+  }
+  EXPECT_EQ(after.code(), absl::StatusCode::kUnauthenticated);
+  EXPECT_TRUE(admin->ListPools().ok());
+}
+
+// Without a token file the daemon refuses a non-loopback address. (It exits while
+// checking its flags, before binding anything.)
+TEST(Security, NonLoopbackWithoutTokensIsRefused) {
+  const auto r = testing::RunCommand({BW_DAEMON_PATH, "--listen", "0.0.0.0:0"});
+  EXPECT_EQ(r.exit_code, 1);
+  EXPECT_THAT(r.err, HasSubstr("not loopback"));
+  EXPECT_THAT(r.err, HasSubstr("--token-file"));
+  const auto h = testing::RunCommand(
+      {BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--http", "0.0.0.0:0"});
+  EXPECT_EQ(h.exit_code, 1);
+  EXPECT_THAT(h.err, HasSubstr("no authentication"));
+  const std::string dir = testing::MakeTempDir("badtokens");
+  std::ofstream(dir + "/t") << "name not-a-hash read\n";
+  const auto b = testing::RunCommand(
+      {BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--token-file", dir + "/t"});
+  EXPECT_EQ(b.exit_code, 1);
+  EXPECT_THAT(b.err, HasSubstr("line 1"));
+}
+
+TEST(Security, TokenHashIsSha256) {
+  // FIPS 180-2, Appendix B.1 test vector ("abc").
+  EXPECT_EQ(server::Sha256Hex("abc"),
+            "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad");
+}
+
+}  // namespace
+}  // namespace bellwether
