@@ -1,5 +1,6 @@
 #include "core/pool_spec.h"
 
+#include <algorithm>
 #include <cmath>
 #include <functional>
 #include <limits>
@@ -862,6 +863,41 @@ namespace bellwether {
 
 absl::StatusOr<CompiledPoolSpec> CompilePoolSpec(const v1::PoolSpec& spec) {
   return Compiler(spec).Run();
+}
+
+StateEstimate EstimateState(const CompiledPoolSpec& spec) {
+  StateEstimate e;
+  const uint64_t actions = std::max<uint64_t>(spec.actions.size(), 1);
+  uint64_t blocks = 0;
+  for (const BlockSpec& b : spec.blocks) {
+    const uint64_t rows = uint64_t{spec.recipe->num_features()} * (b.action_valued ? actions : 1);
+    const uint64_t cells = rows * b.questions.size();
+    // Weights and their sound copy; TDC's secondary weights; per-weight step state; RUPEE.
+    uint64_t arrays = 2;
+    if (b.learner == LearnerKind::kTdc) ++arrays;
+    if (b.step_rule == StepRuleKind::kAutostep) arrays += 3;
+    if (b.step_rule == StepRuleKind::kTidbd) arrays += 2;
+    if (b.step_rule == StepRuleKind::kSettling) arrays += 1;
+    if (b.rupee) arrays += 2;
+    blocks += cells * arrays * sizeof(float);
+    e.per_stream_bytes += rows * sizeof(float);  // the block's dense trace
+  }
+  for (const CompiledQuestion& q : spec.questions) {
+    // Verifier rings: held predictions up to the horizon and the verified window.
+    uint64_t horizon = 0;
+    double d = 1.0;
+    while (d >= 1e-3 && horizon < spec.verify_max_held) {
+      d *= q.gamma;
+      ++horizon;
+    }
+    e.per_stream_bytes += (horizon + 1) * 48 + spec.verify_window * 24;
+  }
+  if (spec.pooled) {
+    e.shared_bytes += blocks;
+  } else {
+    e.per_stream_bytes += blocks;
+  }
+  return e;
 }
 
 }  // namespace bellwether

@@ -140,6 +140,15 @@ struct CompiledPoolSpec {
   bool needs_actions() const;
 };
 
+// Bytes of learned state one stream adds (per-stream learning: weights and step-size
+// state of every block, traces, verifier rings) and bytes the pool holds once (pooled
+// learning: the shared weights). An estimate from the compiled shapes, for limits.
+struct StateEstimate {
+  uint64_t per_stream_bytes = 0;
+  uint64_t shared_bytes = 0;
+};
+StateEstimate EstimateState(const CompiledPoolSpec& spec);
+
 // Checks every field of `spec` and compiles it. Errors are INVALID_ARGUMENT with the
 // pool name, the field path and the reason, e.g.
 //   "pool grid: questions[0] (demand_next_12h).gamma: 1.2 is outside [0, 1]".

@@ -208,6 +208,12 @@ class BellwetherService::IngestReactor
       return kDraining;
     }
     if (Expired(context_)) return kExpired;
+    if (request_.batch().frames_size() > service_->options_.max_batch_frames) {
+      return grpc::Status(grpc::StatusCode::INVALID_ARGUMENT,
+                          absl::StrCat("batch.frames: ", request_.batch().frames_size(),
+                                       " frames; at most ", service_->options_.max_batch_frames,
+                                       " per batch (--max-batch-frames)"));
+    }
     batches_.push_back(std::move(*request_.mutable_batch()));
     PoolWorker::BatchTask task;
     task.stream = &stream_;

@@ -35,6 +35,8 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
     // Batches one ingest call may have queued or in the writer at once; past it the call
     // stops reading, so HTTP/2 flow control slows the producer.
     int max_batches_in_flight = 4;
+    // Frames one ingest message may carry.
+    int max_batch_frames = 10000;
     // How often Watch calls look for fresh answers.
     absl::Duration watch_tick = absl::Milliseconds(50);
   };

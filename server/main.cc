@@ -79,6 +79,13 @@ ABSL_FLAG(std::string, token_file, "",
           "Bearer tokens (NAME SHA256_HEX SCOPES [POOLS] per line; see README Security); "
           "re-read on SIGHUP. Without it every RPC is allowed, so the daemon only listens on "
           "loopback unless --insecure-open is given");
+ABSL_FLAG(int32_t, max_pools, 1000, "Pools the daemon holds at most");
+ABSL_FLAG(int32_t, max_streams_per_pool, 100000, "Streams one pool holds at most");
+ABSL_FLAG(int32_t, max_pool_mib, 2047,
+          "Learned state one pool may hold, MiB (estimated from the spec at apply time and "
+          "checked when a stream starts; a checkpoint holds at most 2 GiB)");
+ABSL_FLAG(int32_t, max_batch_frames, 10000, "Frames one ingest message may carry");
+ABSL_FLAG(int32_t, max_message_mib, 64, "Largest gRPC message accepted, MiB");
 ABSL_FLAG(bool, insecure_open, false,
           "Allow a non-loopback --listen/--http without a token file (no authentication)");
 
@@ -229,6 +236,17 @@ int Main(int argc, char** argv) {
       return 1;
     }
   }
+  for (const auto& [name, value] :
+       {std::pair{"--max-pools", absl::GetFlag(FLAGS_max_pools)},
+        std::pair{"--max-streams-per-pool", absl::GetFlag(FLAGS_max_streams_per_pool)},
+        std::pair{"--max-pool-mib", absl::GetFlag(FLAGS_max_pool_mib)},
+        std::pair{"--max-batch-frames", absl::GetFlag(FLAGS_max_batch_frames)},
+        std::pair{"--max-message-mib", absl::GetFlag(FLAGS_max_message_mib)}}) {
+    if (value < 1) {
+      std::cerr << "bellwetherd: " << name << " " << value << ": must be positive\n";
+      return 1;
+    }
+  }
   namespace bws = bellwether::server;
   bws::DaemonMetrics metrics(kVersion,
                              static_cast<size_t>(absl::GetFlag(FLAGS_metrics_max_questions)));
@@ -239,9 +257,14 @@ int Main(int argc, char** argv) {
   std::atomic<uint64_t> frames_applied{0};
   worker_options.frames_applied_total = &frames_applied;
   std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it
-  bws::PoolRegistry registry(&metrics, worker_options);
+  worker_options.max_streams = static_cast<size_t>(absl::GetFlag(FLAGS_max_streams_per_pool));
+  worker_options.max_pool_bytes = static_cast<uint64_t>(absl::GetFlag(FLAGS_max_pool_mib)) << 20;
+  bws::PoolRegistry registry(&metrics, worker_options,
+                             static_cast<size_t>(absl::GetFlag(FLAGS_max_pools)));
   metrics.SetPoolSource(&registry);
-  bws::BellwetherService service(&registry, &metrics, bws::BellwetherService::Options());
+  bws::BellwetherService::Options service_options;
+  service_options.max_batch_frames = absl::GetFlag(FLAGS_max_batch_frames);
+  bws::BellwetherService service(&registry, &metrics, service_options);
   service.SetAuth(auth.get());
   grpc::EnableDefaultHealthCheckService(true);
   grpc::reflection::InitProtoReflectionServerBuilderPlugin();
@@ -249,6 +272,7 @@ int Main(int argc, char** argv) {
   int port = 0;
   builder.AddListeningPort(listen, credentials, &port);
   builder.RegisterService(&service);
+  builder.SetMaxReceiveMessageSize(absl::GetFlag(FLAGS_max_message_mib) << 20);
   std::unique_ptr<grpc::Server> server = builder.BuildAndStart();
   if (server == nullptr || port == 0) {
     std::cerr << "bellwetherd: cannot listen on " << listen << "\n";

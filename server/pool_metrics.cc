@@ -36,7 +36,7 @@ PoolMetrics::PoolMetrics(std::string pool, prometheus::Family<prometheus::Counte
     rejected_[reason] = &rejected_family_.Add({{"pool", pool_}, {"reason", reason}});
   }
   for (const char* reason :
-       {"queue_full", "pool_deleted", "pool_changed", "draining", "disk_full"}) {
+       {"queue_full", "pool_deleted", "pool_changed", "draining", "disk_full", "stream_limit"}) {
     refused_[reason] = &refused_family_.Add({{"pool", pool_}, {"reason", reason}});
   }
 }

@@ -11,8 +11,9 @@
 
 namespace bellwether::server {
 
-PoolRegistry::PoolRegistry(DaemonMetrics* metrics, PoolWorker::Options options)
-    : metrics_(metrics), options_(options) {}
+PoolRegistry::PoolRegistry(DaemonMetrics* metrics, PoolWorker::Options options,
+                           size_t max_pools)
+    : metrics_(metrics), options_(options), max_pools_(max_pools) {}
 
 PoolRegistry::~PoolRegistry() {
   absl::MutexLock lock(&mu_);
@@ -23,12 +24,27 @@ absl::StatusOr<v1::ApplyPoolResponse> PoolRegistry::Apply(const v1::PoolSpec& sp
                                                           bool create_only) {
   // Validate (and compile) before touching anything.
   BW_ASSIGN_OR_RETURN(std::unique_ptr<Pool> pool, Pool::Create(spec));
+  const StateEstimate e = EstimateState(pool->spec());
+  if (e.shared_bytes + e.per_stream_bytes > options_.max_pool_bytes) {
+    return absl::ResourceExhaustedError(absl::StrCat(
+        "pool ", spec.name(), ": its learned state would need about ",
+        (e.shared_bytes + e.per_stream_bytes) >> 20, " MiB with one stream (",
+        e.per_stream_bytes >> 20, " MiB per stream, ", e.shared_bytes >> 20,
+        " MiB shared); the limit is ", options_.max_pool_bytes >> 20,
+        " MiB (--max-pool-mib). Use fewer questions, a smaller featureTableSize, or POOLED "
+        "learning"));
+  }
   v1::ApplyPoolResponse response;
   std::shared_ptr<PoolWorker> existing;
   {
     absl::MutexLock lock(&mu_);
     auto it = pools_.find(spec.name());
     if (it == pools_.end()) {
+      if (pools_.size() >= max_pools_) {
+        return absl::ResourceExhaustedError(absl::StrCat(
+            "pool ", spec.name(), ": the daemon already has ", pools_.size(),
+            " pools (--max-pools ", max_pools_, ")"));
+      }
       response.set_created(true);
       for (const v1::QuestionSpec& q : spec.questions()) response.add_added(q.name());
       if (!dry_run) {

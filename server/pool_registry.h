@@ -23,7 +23,8 @@ class PoolRegistry {
   // `metrics` may be null (no metrics); it must outlive the registry. `options` is the
   // template for every pool's worker (its `metrics` field is set per pool).
   explicit PoolRegistry(DaemonMetrics* metrics = nullptr,
-                        PoolWorker::Options options = PoolWorker::Options());
+                        PoolWorker::Options options = PoolWorker::Options(),
+                        size_t max_pools = 1000);
   ~PoolRegistry();
 
   // Creates the pool, or updates it (unchanged questions keep their learned state), and
@@ -61,6 +62,7 @@ class PoolRegistry {
  private:
   DaemonMetrics* const metrics_;
   PoolWorker::Options options_;
+  const size_t max_pools_;
   mutable absl::Mutex mu_;
   std::map<std::string, std::shared_ptr<PoolWorker>> pools_ ABSL_GUARDED_BY(mu_);
 };

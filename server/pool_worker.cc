@@ -31,6 +31,7 @@ std::string RejectionReason(absl::string_view message) {
 PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation,
                        uint64_t last_lsn)
     : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {
+  estimate_ = EstimateState(pool_->spec());
   generation_ = MakeGeneration(generation);
   for (const std::string& stream : pool_->stream_names()) {
     // Recovered streams: everything applied came from the log, so it is durable.
@@ -262,6 +263,7 @@ void PoolWorker::ReplaceTask(Task& task) {
     last_lsn_ = *lsn;
   }
   pool_ = std::move(*next);
+  estimate_ = EstimateState(pool_->spec());
   InstallSink();
   {
     absl::MutexLock lock(&generation_mu_);
@@ -305,6 +307,18 @@ void PoolWorker::ApplyTask(Task& task) {
   }
   const std::string& stream = *t.stream;
   PoolMetrics* m = options_.metrics.get();
+  // A new stream within the limits (streams per pool, the pool's learned-state bytes).
+  if (r.status.ok() && !pool_->has_stream(stream)) {
+    const uint64_t n = pool_->num_streams();
+    const uint64_t bytes = estimate_.shared_bytes + (n + 1) * estimate_.per_stream_bytes;
+    if (n >= options_.max_streams || bytes > options_.max_pool_bytes) {
+      if (m != nullptr) m->BatchRefused("stream_limit");
+      r.status = absl::ResourceExhaustedError(absl::StrCat(
+          "pool ", name_, ": a new stream '", stream, "' would make ", n + 1, " streams and about ",
+          bytes >> 20, " MiB of learned state (limits: --max-streams-per-pool ",
+          options_.max_streams, ", --max-pool-mib ", options_.max_pool_bytes >> 20, ")"));
+    }
+  }
   // Log first: a batch is applied only once its record is in the log.
   uint64_t lsn = 0;
   if (r.status.ok() && options_.wal != nullptr) {

@@ -50,6 +50,10 @@ class PoolWorker {
     Wal* wal = nullptr;
     // Counts applied frames across the daemon (for checkpoint scheduling); may be null.
     std::atomic<uint64_t>* frames_applied_total = nullptr;
+    // Limits: a batch that would start a stream past either is refused whole with
+    // RESOURCE_EXHAUSTED (refusal reason "stream_limit").
+    size_t max_streams = 100000;
+    uint64_t max_pool_bytes = uint64_t{2047} << 20;
   };
 
   // The outcome of one batch.
@@ -208,6 +212,7 @@ class PoolWorker {
       ABSL_GUARDED_BY(history_mu_);
 
   uint64_t last_lsn_ = 0;  // writer thread
+  StateEstimate estimate_;  // writer thread: the current spec's state sizes
   std::atomic<int64_t> pending_durable_{0};  // batch callbacks waiting for the log
   mutable absl::Mutex durable_mu_;
   absl::flat_hash_map<std::string, uint64_t> durable_seq_ ABSL_GUARDED_BY(durable_mu_);

@@ -209,6 +209,68 @@ TEST(Security, NonLoopbackWithoutTokensIsRefused) {
   EXPECT_THAT(b.err, HasSubstr("line 1"));
 }
 
+// Limits: each violation a clear error (naming the flag) and a refusal, learned state
+// of existing streams unchanged.
+TEST(Security, LimitsAreEnforcedWithClearErrors) {
+  testing::DaemonProcess daemon({"--max-pools", "1", "--max-streams-per-pool", "2",
+                                 "--max-batch-frames", "50", "--max-pool-mib", "64"});
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  auto client = Client::Connect(daemon.address());
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok());
+  ASSERT_TRUE(client->ApplyPool(*spec).ok());
+  v1::PoolSpec second = *spec;
+  second.set_name("second");
+  auto too_many = client->ApplyPool(second);
+  EXPECT_EQ(too_many.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(too_many.status().message(), HasSubstr("--max-pools 1"));
+  // A spec whose state cannot fit: 400 questions over a 65,536-entry table.
+  v1::PoolSpec huge = *spec;
+  huge.mutable_features(0)->mutable_tiles()->set_tiles_per_dim(4096);
+  huge.set_feature_table_size(65536);
+  for (int i = 0; i < 400; ++i) {
+    v1::QuestionSpec* q = huge.add_questions();
+    *q = spec->questions(0);
+    q->set_name("q" + std::to_string(i));
+  }
+  auto big = client->ApplyPool(huge);
+  EXPECT_EQ(big.status().code(), absl::StatusCode::kResourceExhausted) << big.status();
+  EXPECT_THAT(big.status().message(), HasSubstr("MiB"));
+  EXPECT_THAT(big.status().message(), HasSubstr("--max-pool-mib"));
+
+  auto batch_of = [](uint64_t first, int n) {
+    v1::FrameBatch b;
+    for (int i = 0; i < n; ++i) {
+      v1::Frame* f = b.add_frames();
+      f->set_seq(first + static_cast<uint64_t>(i));
+      f->set_local_micros(static_cast<int64_t>(first + static_cast<uint64_t>(i)) * 1800 * 1000000);
+      f->add_values(25000 + i);
+    }
+    return b;
+  };
+  for (const char* stream : {"a", "b"}) {
+    auto s = client->OpenIngest("grid", stream, {});
+    ASSERT_TRUE(s.ok());
+    ASSERT_TRUE((*s)->Send(batch_of(1, 40)).ok());
+  }
+  auto before = client->Predict("grid", "a");
+  ASSERT_TRUE(before.ok());
+  auto third = client->OpenIngest("grid", "c", {});
+  ASSERT_TRUE(third.ok());
+  auto refused = (*third)->Send(batch_of(1, 10));
+  EXPECT_EQ(refused.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(refused.status().message(), HasSubstr("--max-streams-per-pool 2"));
+  auto big_batch = client->OpenIngest("grid", "a", {});
+  ASSERT_TRUE(big_batch.ok());
+  auto too_big = (*big_batch)->Send(batch_of(41, 51));
+  EXPECT_EQ(too_big.status().code(), absl::StatusCode::kInvalidArgument);
+  EXPECT_THAT(too_big.status().message(), HasSubstr("batch.frames: 51 frames; at most 50"));
+  auto after = client->Predict("grid", "a");
+  ASSERT_TRUE(after.ok());
+  EXPECT_EQ(after->SerializeAsString(), before->SerializeAsString()) << "state changed";
+  EXPECT_EQ(client->Predict("grid", "c").status().code(), absl::StatusCode::kNotFound);
+}
+
 TEST(Security, TokenHashIsSha256) {
   // FIPS 180-2, Appendix B.1 test vector ("abc").
   EXPECT_EQ(server::Sha256Hex("abc"),
