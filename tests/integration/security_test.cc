@@ -3,7 +3,9 @@
 // tokens), token reload on SIGHUP, and the loopback-only default without a token file.
 #include <signal.h>
 
+#include <cmath>
 #include <fstream>
+#include <sstream>
 #include <string>
 #include <thread>
 
@@ -269,6 +271,138 @@ TEST(Security, LimitsAreEnforcedWithClearErrors) {
   ASSERT_TRUE(after.ok());
   EXPECT_EQ(after->SerializeAsString(), before->SerializeAsString()) << "state changed";
   EXPECT_EQ(client->Predict("grid", "c").status().code(), absl::StatusCode::kNotFound);
+}
+
+// The value of one series in the daemon's /metrics text (-1 if absent).
+double MetricValue(const std::string& http, const std::string& series) {
+  const auto r = testing::RunCommand(
+      {"/usr/bin/python3", "-c",
+       "import sys, urllib.request; sys.stdout.write(urllib.request.urlopen(sys.argv[1], "
+       "timeout=10).read().decode())",
+       "http://" + http + "/metrics"});
+  EXPECT_EQ(r.exit_code, 0) << r.err;
+  std::istringstream in(r.out);
+  std::string line;
+  while (std::getline(in, line)) {
+    if (line.rfind(series + " ", 0) == 0) return std::stod(line.substr(series.size() + 1));
+  }
+  return -1;
+}
+
+// Hostile input over real gRPC: each case gets its documented answer and metric, and the
+// answers and progress of an existing stream do not move.
+TEST(Security, HostileInputIsRefusedAndLearnedStateIsIntact) {
+  testing::DaemonProcess daemon({"--http", "127.0.0.1:0", "--max-streams-per-pool", "20"});
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  auto client = Client::Connect(daemon.address());
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok());
+  ASSERT_TRUE(client->ApplyPool(*spec).ok());
+  auto frame = [](uint64_t seq, double v) {
+    v1::Frame f;
+    f.set_seq(seq);
+    f.set_local_micros(static_cast<int64_t>(seq) * 1800 * 1000000);
+    f.add_values(v);
+    return f;
+  };
+  {
+    auto s = client->OpenIngest("grid", "steady", {});
+    ASSERT_TRUE(s.ok());
+    v1::FrameBatch b;
+    for (uint64_t i = 1; i <= 300; ++i) *b.add_frames() = frame(i, 25000 + 100.0 * (i % 48));
+    ASSERT_TRUE((*s)->Send(b).ok());
+  }
+  auto steady = [&] {
+    auto p = client->Progress("grid", "steady");
+    EXPECT_TRUE(p.ok());
+    return p.ok() ? p->current().SerializeAsString() : std::string();
+  };
+  const std::string before = steady();
+  const std::string m = "{pool=\"grid\",reason=\"";
+
+  // NaN and infinities: that frame rejected (reason values), the rest of the batch applied.
+  auto hostile = client->OpenIngest("grid", "hostile", {});
+  ASSERT_TRUE(hostile.ok());
+  v1::FrameBatch b;
+  *b.add_frames() = frame(1, 25000);
+  *b.add_frames() = frame(2, std::nan(""));
+  *b.add_frames() = frame(3, HUGE_VAL);
+  *b.add_frames() = frame(4, -HUGE_VAL);
+  *b.add_frames() = frame(5, 26000);
+  auto ack = (*hostile)->Send(b);
+  ASSERT_TRUE(ack.ok());
+  EXPECT_EQ(ack->rejected_size(), 3);
+  EXPECT_EQ(ack->applied_seq(), 5u);
+  // A seq of 0, a wrong number of values: rejected (seq, values). A seq jump is accepted
+  // (frames may be dropped upstream): the next frame simply follows.
+  v1::FrameBatch c;
+  *c.add_frames() = frame(0, 25000);
+  v1::Frame two = frame(6, 1);
+  two.add_values(2);
+  *c.add_frames() = two;
+  *c.add_frames() = frame(1000000, 25500);
+  ack = (*hostile)->Send(c);
+  ASSERT_TRUE(ack.ok());
+  EXPECT_EQ(ack->rejected_size(), 2);
+  EXPECT_EQ(ack->applied_seq(), 1000000u);
+  // Timestamps far in the past and far in the future are accepted (history is replayed
+  // routinely); clock features follow them.
+  v1::FrameBatch d;
+  v1::Frame past = frame(1000001, 25000);
+  past.set_unix_micros(-int64_t{3000} * 365 * 86400 * 1000000);  // about 1030 BC
+  v1::Frame future = frame(1000002, 25000);
+  future.set_unix_micros(int64_t{9000} * 365 * 86400 * 1000000);  // about 10970 AD
+  *d.add_frames() = past;
+  *d.add_frames() = future;
+  ack = (*hostile)->Send(d);
+  ASSERT_TRUE(ack.ok()) << ack.status();
+  // Huge but finite values are learned from on this stream only (per-stream learning);
+  // the divergence guard keeps its answers finite.
+  v1::FrameBatch e;
+  *e.add_frames() = frame(1000003, 1e300);
+  *e.add_frames() = frame(1000004, -1e300);
+  ack = (*hostile)->Send(e);
+  ASSERT_TRUE(ack.ok());
+  auto h = client->Predict("grid", "hostile");
+  ASSERT_TRUE(h.ok());
+  EXPECT_TRUE(std::isfinite(h->predictions(0).value()));
+  ASSERT_TRUE((*hostile)->Finish().ok());
+  // A stream name with a control character: the open is refused.
+  auto bad_name = client->OpenIngest("grid", std::string("evil\x01name"), {});
+  ASSERT_TRUE(bad_name.ok());
+  auto refused = (*bad_name)->Send(b);
+  EXPECT_EQ(refused.status().code(), absl::StatusCode::kInvalidArgument);
+  EXPECT_THAT(refused.status().message(), HasSubstr("control character"));
+  // A cyclic spec (a question reading itself through another) is refused, naming it.
+  v1::PoolSpec cyclic = *spec;
+  cyclic.set_name("cyclic");
+  cyclic.mutable_questions(0)->mutable_cumulant()->set_question("loop_b");
+  v1::QuestionSpec* loop = cyclic.add_questions();
+  *loop = spec->questions(0);
+  loop->set_name("loop_b");
+  loop->mutable_cumulant()->set_question(spec->questions(0).name());
+  auto cyc = client->ApplyPool(cyclic);
+  EXPECT_EQ(cyc.status().code(), absl::StatusCode::kInvalidArgument);
+  EXPECT_THAT(cyc.status().message(), HasSubstr("cycle"));
+  // A flood of new stream ids stops at the limit (20 streams; 2 exist).
+  int refused_streams = 0;
+  for (int i = 0; i < 40; ++i) {
+    auto s = client->OpenIngest("grid", "flood-" + std::to_string(i), {});
+    ASSERT_TRUE(s.ok());
+    v1::FrameBatch one;
+    *one.add_frames() = frame(1, 25000);
+    if ((*s)->Send(one).status().code() == absl::StatusCode::kResourceExhausted) ++refused_streams;
+  }
+  EXPECT_EQ(refused_streams, 40 - 18);
+
+  // Metrics count each kind.
+  EXPECT_EQ(MetricValue(daemon.http_address(), "bellwether_frames_rejected_total" + m + "values\"}"), 4);
+  EXPECT_EQ(MetricValue(daemon.http_address(), "bellwether_frames_rejected_total" + m + "seq\"}"), 1);
+  EXPECT_EQ(MetricValue(daemon.http_address(),
+                        "bellwether_ingest_batches_refused_total" + m + "stream_limit\"}"),
+            40 - 18);
+  // The existing stream's answers and progress did not move.
+  EXPECT_TRUE(steady() == before);
 }
 
 TEST(Security, TokenHashIsSha256) {
