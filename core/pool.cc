@@ -239,7 +239,10 @@ double Pool::TransitionCumulant(const CompiledCumulant& c, const FrameInput& fra
       return c.constant;
     case CumulantKind::kFramePeriod:
       if (now.has_value() && s.prev_time_micros.has_value() && *now > *s.prev_time_micros) {
-        return static_cast<double>(*now - *s.prev_time_micros) * 1e-6;
+        int64_t elapsed = 0;
+        // Hostile timestamps can be far enough apart to overflow: no period then.
+        if (__builtin_sub_overflow(*now, *s.prev_time_micros, &elapsed)) return kNaN;
+        return static_cast<double>(elapsed) * 1e-6;
       }
       return kNaN;
     case CumulantKind::kQuestion:
@@ -790,6 +793,14 @@ absl::Status Pool::RestoreState(absl::string_view state) {
       if (f >= spec_.recipe->num_features()) return bad("feature index out of range");
     }
     st.prev_x.Reserve(spec_.recipe->max_active());  // no allocation on the next frames
+    if (prev_action < -1 || prev_action >= static_cast<int32_t>(spec_.actions.size())) {
+      return bad("previous action out of range");
+    }
+    for (int a : st.greedy_actions) {
+      if (a < -1 || a >= static_cast<int>(std::max<size_t>(spec_.actions.size(), 1))) {
+        return bad("greedy action out of range");
+      }
+    }
     st.has_prev = has_prev != 0;
     st.prev_action = prev_action;
     if (has_time != 0) st.prev_time_micros = time;

@@ -210,7 +210,10 @@ void BlockLearner::Answer(const BlockSpec& spec, const SparseFeatures& x,
       if (greedy_action != nullptr) *greedy_action = g;
     } else {
       double sum = 0;
-      for (uint32_t a = 0; a < num_actions_; ++a) sum += pi[a] * qv[a];
+      // Without a target distribution (no action known), the uniform one.
+      for (uint32_t a = 0; a < num_actions_; ++a) {
+        sum += (pi.size() > a ? pi[a] : 1.0 / num_actions_) * qv[a];
+      }
       answers[q] = sum;
     }
   }
@@ -227,6 +230,17 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
   const double gamma_next = step.gamma_next;
   const uint32_t A = num_actions_;
 
+  if (spec.action_valued && step.action < 0) {
+    // No action is known for S_t (the frame carried none): nothing to learn from, and the
+    // trace is cut. Found by fuzzing: indexing by action -1 read and wrote out of bounds.
+    for (uint32_t q = 0; q < nq; ++q) ++p.counters_[q].skipped_missing;
+    state.trace.Clear();
+    state.gamma_t = step.gamma_next;
+    Answer(spec, *step.x_next,
+           step.pi_next.size() >= num_actions_ ? step.pi_next : absl::Span<const double>(),
+           p, answers, greedy_action);
+    return;
+  }
   // Target distributions for action values: fixed by the caller, or greedy (control).
   double pi_taken = 1.0;
   const double* pi_next = step.pi_next.data();

@@ -1,5 +1,6 @@
 // Pool checkpoints: a restored pool continues bit for bit like the one that was saved,
 // for every learner family the recipes use; damaged payloads fail cleanly.
+#include <cmath>
 #include <cstring>
 #include <random>
 #include <string>
@@ -160,6 +161,37 @@ TEST(PoolStateCorruption, TruncationsAndBitFlipsFailCleanly) {
   // Lengths and indices are checked, so some flips are caught; a flip inside a weight is
   // not detectable here (the checkpoint file's CRC catches those).
   EXPECT_GT(refused, 0);
+}
+
+// Found by fuzzing: a frame without an action in a pool whose questions learn action
+// values used to index by action -1 (out of bounds). Now that transition is skipped and
+// counted, the trace is cut, and answers stay finite.
+TEST(ActionValues, FramesWithoutAnActionAreSkippedNotIndexed) {
+  auto spec = ReadPoolSpecFile(Repo("deploy/examples/recipes/robot-charging.json"));
+  ASSERT_TRUE(spec.ok());
+  v1::QuestionSpec* control = spec->add_questions();
+  control->set_name("best_return");
+  control->mutable_cumulant()->set_constant(1.0);
+  control->set_gamma(0.9);
+  control->set_control(true);
+  auto pool = Pool::Create(*spec);
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  Frames f = ReadFrames(**pool, Repo("deploy/examples/robot-fleet.csv"));
+  for (size_t i = 0; i < 200; ++i) {
+    if (i % 3 == 0) {
+      f.frames[i].clear_action();
+      f.frames[i].clear_behavior_prob();
+    }
+  }
+  ApplyRange(**pool, f, 0, 200, "r1");
+  v1::StreamPredictions out;
+  ASSERT_TRUE((*pool)->GetPredictions("r1", &out).ok());
+  for (const v1::Prediction& p : out.predictions()) {
+    EXPECT_TRUE(std::isfinite(p.value())) << p.question();
+    if (p.question() == "best_return") {
+      EXPECT_GT(p.progress().skipped_missing(), 0u);
+    }
+  }
 }
 
 }  // namespace
