@@ -7,3 +7,48 @@ root=$(cd "$(dirname "${BASH_SOURCE[0]}")/.." && pwd)
 build=${BELLWETHER_BUILD_DIR:-$root/build}
 cd "$build"
 ctest --output-on-failure --parallel "$(nproc 2>/dev/null || echo 2)" --timeout 600
+
+# The fuzz harnesses of the loaders of hostile input (tests/fuzz/run.sh): a clang-14 build
+# in build-fuzz, then each harness for BELLWETHER_FUZZ_SECONDS seconds (0, the default, skips) from
+# the committed seeds. A crash fails the check; its input and log go to
+# build-fuzz/fuzz-findings/. Off by default until its CI time is measured on a clean
+# machine: BELLWETHER_FUZZ_SECONDS=60 deploy/check.sh runs it.
+if [ "${BELLWETHER_FUZZ_SECONDS:-0}" != 0 ]; then
+  "$root/tests/fuzz/run.sh" "${BELLWETHER_FUZZ_SECONDS}"
+fi
+
+# Second stage: the same tests again, built with AddressSanitizer + UndefinedBehaviorSanitizer
+# (-DBELLWETHER_SANITIZE=ON) in build-asan/. The daemon and CLI built there are sanitized
+# too, so the integration tests that run them check them as well. A sanitized process
+# writes its report to build-asan/sanitizer-logs/ (log_path): a daemon's stderr, or a CLI
+# run whose exit code a test does not look at, would otherwise hide it. Any report there
+# fails the stage, as does any failing test. Off by default until its CI time is measured on
+# a clean machine: BELLWETHER_CHECK_SANITIZE=1 deploy/check.sh runs it.
+# Not run here (each drives the same sanitized daemon the C++ integration tests drive, and
+# their time goes to a browser, a Prometheus server or a Python interpreter):
+#   StatusPage         the status page in headless Chromium
+#   PrometheusMetrics  promtool and a real Prometheus scraping /metrics
+#   PythonClient       the Python gRPC stubs against the daemon
+if [ "${BELLWETHER_CHECK_SANITIZE:-0}" != 0 ]; then
+  start=$SECONDS
+  asan=${BELLWETHER_ASAN_BUILD_DIR:-$root/build-asan}
+  BELLWETHER_BUILD_DIR=$asan "$root/deploy/build.sh" -DBELLWETHER_SANITIZE=ON
+  built=$SECONDS
+  logs=$asan/sanitizer-logs
+  rm -rf "$logs" && mkdir -p "$logs"
+  cd "$asan"
+  status=0
+  ASAN_OPTIONS=detect_leaks=1:abort_on_error=1:log_path=$logs/asan \
+  UBSAN_OPTIONS=print_stacktrace=1:halt_on_error=1:log_path=$logs/ubsan \
+    ctest --output-on-failure --parallel 2 --timeout 600 \
+      --exclude-regex '^(StatusPage|PrometheusMetrics|PythonClient)$' || status=$?
+  shopt -s nullglob
+  reports=("$logs"/*)
+  if [ ${#reports[@]} -gt 0 ]; then
+    for r in "${reports[@]}"; do echo "== sanitizer report $r"; cat "$r"; done
+    echo "check: sanitizer reports in $logs (above)"
+    status=1
+  fi
+  echo "check: sanitizer stage: build $((built - start)) s, tests $((SECONDS - built)) s"
+  exit $status
+fi

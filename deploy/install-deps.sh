@@ -11,6 +11,7 @@ packages=(
   tzdata python3-numpy
   libcivetweb-dev chromium prometheus python3-grpcio python3-grpc-tools
   libssl-dev openssl
+  clang-14 libclang-rt-14-dev
 )
 
 missing=()
