@@ -60,10 +60,16 @@ export UBSAN_OPTIONS=${UBSAN_OPTIONS:-print_stacktrace=1}
 findings=$build/fuzz-findings
 rm -rf "$findings"
 work=$(mktemp -d "${TMPDIR:-/tmp}/bellwether-fuzz.XXXXXX")
+# Scratch state directories of the wal harness: in memory where possible (recovery
+# fsyncs), and removed with the rest even when a harness crashed and left its own behind.
+shm=/dev/shm
+[ -d "$shm" ] && [ -w "$shm" ] || shm=$work
+scratch=$(mktemp -d "$shm/bellwether-fuzz-scratch.XXXXXX")
+export BELLWETHER_FUZZ_SCRATCH=$scratch
 pids=()
 cleanup() {
   for pid in "${pids[@]}"; do kill "$pid" 2>/dev/null || true; done
-  rm -rf "$work"
+  rm -rf "$work" "$scratch"
 }
 trap cleanup EXIT
 

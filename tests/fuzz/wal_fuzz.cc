@@ -1,6 +1,7 @@
 // Fuzzes the write-ahead log reader and recovery (server/wal.h, server/state_dir.h): the
 // bytes become the only segment, wal-00000000000000000001.log, of an otherwise empty
-// state directory (in /dev/shm when it exists, so no disk is touched), then
+// state directory (under $BELLWETHER_FUZZ_SCRATCH if set, else in /dev/shm when it
+// exists, so no disk is touched), then
 //   1. ReadWal(dir, 0, ...) without repair;
 //   2. Recover(dir), which replays the log into pools (creating them from the log's
 //      spec records) and cuts a torn tail.
@@ -34,12 +35,16 @@ namespace {
 using namespace bellwether;
 namespace fs = std::filesystem;
 
-// One directory per process, removed at exit.
+// One directory per process, removed at exit (a crash leaves it behind: run.sh points
+// BELLWETHER_FUZZ_SCRATCH at a directory of its own, which it removes).
 class TempDir {
  public:
   TempDir() {
     std::error_code ec;
-    std::string base = fs::is_directory("/dev/shm", ec) ? "/dev/shm" : fs::temp_directory_path().string();
+    const char* scratch = std::getenv("BELLWETHER_FUZZ_SCRATCH");
+    std::string base = scratch != nullptr && *scratch != '\0' ? scratch
+                       : fs::is_directory("/dev/shm", ec)     ? "/dev/shm"
+                                                               : fs::temp_directory_path().string();
     std::string templ = base + "/bellwether-wal-fuzz-XXXXXX";
     if (mkdtemp(templ.data()) == nullptr) fuzz::Broken("mkdtemp failed in " + base);
     path_ = templ;
