@@ -105,7 +105,8 @@ TEST(Durability, CrashLoopLosesNothingAcknowledgedAndEndsBitIdentical) {
     testing::DaemonProcess daemon({"--checkpoint-frames", "700"}, dir);
     ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:")) << "round " << round;
     auto client = Client::Connect(daemon.address());
-    ASSERT_TRUE(client->ApplyPool(*spec).ok());  // no-op once it exists
+    const auto applied = client->ApplyPool(*spec);  // no-op once it exists
+    ASSERT_TRUE(applied.ok()) << "round " << round << ": " << applied.status();
     // Nothing acknowledged as durable may be missing after the restart.
     IngestOptions o;
     o.resume = true;
