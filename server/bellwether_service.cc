@@ -104,10 +104,20 @@ class BellwetherService::IngestReactor
  public:
   IngestReactor(BellwetherService* service, grpc::CallbackServerContext* context)
       : service_(service), context_(context) {
-    service_->Register(this);
+    const size_t open_calls = service_->Register(this);
     if (grpc::Status g = service_->Gate(); !g.ok()) {
       finishing_ = true;
       Finish(g);
+      return;
+    }
+    if (open_calls > static_cast<size_t>(service_->options_.max_ingest_calls)) {
+      if (service_->metrics_ != nullptr) service_->metrics_->LimitRefused("ingest_calls");
+      finishing_ = true;
+      Finish(grpc::Status(grpc::StatusCode::RESOURCE_EXHAUSTED,
+                          absl::StrCat("ingest: ", open_calls - 1,
+                                       " ingest calls are open, the most the daemon takes "
+                                       "(--max-ingest-calls ",
+                                       service_->options_.max_ingest_calls, "); retry later")));
       return;
     }
     read_outstanding_ = true;
@@ -444,9 +454,10 @@ BellwetherService::~BellwetherService() {
   watch_thread_.join();
 }
 
-void BellwetherService::Register(IngestReactor* r) {
+size_t BellwetherService::Register(IngestReactor* r) {
   absl::MutexLock lock(&calls_mu_);
   ingests_.insert(r);
+  return ingests_.size();
 }
 void BellwetherService::Unregister(IngestReactor* r) {
   absl::MutexLock lock(&calls_mu_);
@@ -476,7 +487,12 @@ void BellwetherService::WatchLoop() {
 grpc::Status BellwetherService::Authorize(const grpc::ServerContextBase& context, Scope scope,
                                           const std::string& pool) const {
   if (auth_ == nullptr) return grpc::Status::OK;
-  return ToGrpc(auth_->Check(context, scope, pool));
+  const absl::Status s = auth_->Check(context, scope, pool);
+  if (!s.ok() && metrics_ != nullptr) {
+    metrics_->AuthFailed(absl::IsUnauthenticated(s) ? "grpc_unauthenticated"
+                                                    : "grpc_permission_denied");
+  }
+  return ToGrpc(s);
 }
 
 grpc::Status BellwetherService::Gate() const {

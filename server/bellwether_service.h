@@ -37,6 +37,9 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
     int max_batches_in_flight = 4;
     // Frames one ingest message may carry.
     int max_batch_frames = 10000;
+    // Ingest calls open at once; a call past it ends at once with RESOURCE_EXHAUSTED
+    // (bellwether_limit_refusals_total{limit="ingest_calls"}).
+    int max_ingest_calls = 4096;
     // How often Watch calls look for fresh answers.
     absl::Duration watch_tick = absl::Milliseconds(50);
   };
@@ -99,7 +102,7 @@ class BellwetherService final : public v1::Bellwether::CallbackService {
   friend class WatchReactor;
 
   void WatchLoop();
-  void Register(IngestReactor* r);
+  size_t Register(IngestReactor* r);  // returns the ingest calls now open
   void Unregister(IngestReactor* r);
   void Register(WatchReactor* r);
   void Unregister(WatchReactor* r);

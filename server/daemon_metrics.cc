@@ -71,6 +71,17 @@ DaemonMetrics::DaemonMetrics(const std::string& version, size_t max_question_ser
                         .Name("bellwether_predict_seconds")
                         .Help("Time to answer a read RPC (Predict, PredictBatch, Progress)")
                         .Register(*registry_)),
+      limit_refusals_(prometheus::BuildCounter()
+                          .Name("bellwether_limit_refusals_total")
+                          .Help("Requests refused by a configured limit (ApplyPool: pools, "
+                                "pool_memory, questions, signals, feature_table; Ingest: "
+                                "ingest_calls)")
+                          .Register(*registry_)),
+      auth_failures_(prometheus::BuildCounter()
+                         .Name("bellwether_auth_failures_total")
+                         .Help("Requests refused for want of a valid token, scope or "
+                               "password, by reason")
+                         .Register(*registry_)),
       predict_(&read_seconds_.Add({{"method", "Predict"}}, ReadBuckets())),
       predict_batch_(&read_seconds_.Add({{"method", "PredictBatch"}}, ReadBuckets())),
       progress_(&read_seconds_.Add({{"method", "Progress"}}, ReadBuckets())),
@@ -113,6 +124,14 @@ void DaemonMetrics::SetRecovery(double seconds, double records, double frames) {
 std::shared_ptr<PoolMetrics> DaemonMetrics::NewPoolMetrics(const std::string& pool) {
   return std::make_shared<PoolMetrics>(pool, received_, applied_, rejected_, batch_seconds_,
                                        refused_, duplicate_);
+}
+
+void DaemonMetrics::LimitRefused(const std::string& limit) {
+  limit_refusals_.Add({{"limit", limit}}).Increment();
+}
+
+void DaemonMetrics::AuthFailed(const std::string& reason) {
+  auth_failures_.Add({{"reason", reason}}).Increment();
 }
 
 void DaemonMetrics::ObserveRead(const std::string& method, double seconds) {

@@ -14,7 +14,16 @@
 //                                                     behavior_prob, time, other
 //   bellwether_ingest_batches_refused_total{pool,reason}  whole batches turned away:
 //                                                     queue_full, pool_deleted,
-//                                                     pool_changed, draining, disk_full
+//                                                     pool_changed, draining, disk_full,
+//                                                     stream_limit, rate_limited
+//   bellwether_limit_refusals_total{limit}          requests refused by a configured limit
+//                                                     that is not a pool's batch refusal:
+//                                                     pools, pool_memory, questions,
+//                                                     signals, feature_table (ApplyPool);
+//                                                     ingest_calls (Ingest)
+//   bellwether_auth_failures_total{reason}            grpc_unauthenticated (no or unknown
+//                                                     token), grpc_permission_denied (scope
+//                                                     or pool), http_unauthorized
 //   bellwether_batch_apply_seconds{pool}              histogram: one batch in the writer
 //   bellwether_predict_seconds{method}                histogram: Predict / PredictBatch /
 //                                                     Progress handling time
@@ -55,6 +64,11 @@ class DaemonMetrics {
   // Instruments for a new pool (its series go when the returned object goes).
   std::shared_ptr<PoolMetrics> NewPoolMetrics(const std::string& pool);
 
+  // Counts a request refused by the limit `limit` (see the list above). Thread-safe.
+  void LimitRefused(const std::string& limit);
+  // Counts a request that failed authentication or authorization. Thread-safe.
+  void AuthFailed(const std::string& reason);
+
   // Records the handling time of a read RPC.
   void ObserveRead(const std::string& method, double seconds);
 
@@ -77,6 +91,8 @@ class DaemonMetrics {
   prometheus::Family<prometheus::Counter>& refused_;
   prometheus::Family<prometheus::Counter>& duplicate_;
   prometheus::Family<prometheus::Histogram>& read_seconds_;
+  prometheus::Family<prometheus::Counter>& limit_refusals_;
+  prometheus::Family<prometheus::Counter>& auth_failures_;
   prometheus::Gauge* recovery_seconds_;
   prometheus::Gauge* recovery_records_;
   prometheus::Gauge* recovery_frames_;

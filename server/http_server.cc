@@ -16,13 +16,14 @@ std::string QueryParam(const std::string& query, const std::string& name) {
 }
 
 absl::StatusOr<std::unique_ptr<HttpServer>> HttpServer::Start(
-    const std::string& host_port, std::map<std::string, Handler> routes) {
+    const std::string& host_port, std::map<std::string, Handler> routes, Authorizer authorize) {
   const size_t colon = host_port.rfind(':');
   if (colon == std::string::npos || colon + 1 >= host_port.size()) {
     return absl::InvalidArgumentError(absl::StrCat("--http ", host_port, ": expected HOST:PORT"));
   }
   std::unique_ptr<HttpServer> server(new HttpServer());
   server->routes_ = std::move(routes);
+  server->authorize_ = std::move(authorize);
   mg_init_library(0);
   const char* options[] = {"listening_ports",    host_port.c_str(),
                            "num_threads",        "4",
@@ -54,7 +55,13 @@ int HttpServer::Dispatch(mg_connection* conn, void* self) {
   HttpResponse response;
   const std::string method = info->request_method != nullptr ? info->request_method : "";
   const std::string path = info->local_uri != nullptr ? info->local_uri : "/";
-  if (method != "GET" && method != "HEAD") {
+  const char* authorization = mg_get_header(conn, "Authorization");
+  const bool denied = server->authorize_ != nullptr &&
+                      !server->authorize_(authorization != nullptr ? authorization : "");
+  if (denied) {
+    response.status = 401;
+    response.body = "authentication required\n";
+  } else if (method != "GET" && method != "HEAD") {
     response.status = 405;
     response.body = "only GET and HEAD\n";
   } else {
@@ -68,14 +75,16 @@ int HttpServer::Dispatch(mg_connection* conn, void* self) {
   }
   const char* reason = response.status == 200   ? "OK"
                        : response.status == 400 ? "Bad Request"
+                       : response.status == 401 ? "Unauthorized"
                        : response.status == 404 ? "Not Found"
                        : response.status == 405 ? "Method Not Allowed"
                        : response.status == 503 ? "Service Unavailable"
                                                 : "Error";
   mg_printf(conn,
             "HTTP/1.1 %d %s\r\nContent-Type: %s\r\nContent-Length: %zu\r\n"
-            "Cache-Control: no-store\r\nX-Content-Type-Options: nosniff\r\n\r\n",
-            response.status, reason, response.content_type.c_str(), response.body.size());
+            "Cache-Control: no-store\r\nX-Content-Type-Options: nosniff\r\n%s\r\n",
+            response.status, reason, response.content_type.c_str(), response.body.size(),
+            denied ? "WWW-Authenticate: Basic realm=\"bellwether\", charset=\"UTF-8\"\r\n" : "");
   if (method != "HEAD") mg_write(conn, response.body.data(), response.body.size());
   return response.status;
 }

@@ -26,11 +26,16 @@ class HttpServer {
   // Receives the query string (without '?'), and returns the response. Runs on one of
   // the server's threads; must be thread-safe.
   using Handler = std::function<HttpResponse(const std::string& query)>;
+  // Receives the request's Authorization header (empty if none); false answers 401 with
+  // a Basic challenge. Must be thread-safe.
+  using Authorizer = std::function<bool(const std::string& authorization)>;
 
   // Listens on `host_port` ("127.0.0.1:0" picks a free port). INVALID_ARGUMENT for a
-  // malformed address, UNAVAILABLE if it cannot listen.
+  // malformed address, UNAVAILABLE if it cannot listen. With `authorize`, every request
+  // must pass it.
   static absl::StatusOr<std::unique_ptr<HttpServer>> Start(const std::string& host_port,
-                                                           std::map<std::string, Handler> routes);
+                                                           std::map<std::string, Handler> routes,
+                                                           Authorizer authorize = nullptr);
   // Stops listening and waits for requests in progress.
   ~HttpServer();
 
@@ -45,6 +50,7 @@ class HttpServer {
   static int Dispatch(mg_connection* conn, void* self);
 
   std::map<std::string, Handler> routes_;
+  Authorizer authorize_;
   mg_context* ctx_ = nullptr;
   int port_ = 0;
 };

@@ -33,6 +33,7 @@
 #include <fstream>
 #include <sstream>
 #include "server/checkpointer.h"
+#include "server/http_auth.h"
 #include "server/state_dir.h"
 #include "server/wal.h"
 #include <atomic>
@@ -85,7 +86,23 @@ ABSL_FLAG(int32_t, max_pool_mib, 2047,
           "Learned state one pool may hold, MiB (estimated from the spec at apply time and "
           "checked when a stream starts; a checkpoint holds at most 2 GiB)");
 ABSL_FLAG(int32_t, max_batch_frames, 10000, "Frames one ingest message may carry");
+ABSL_FLAG(int32_t, max_questions_per_pool, 4096, "Questions one pool spec may declare");
+ABSL_FLAG(int32_t, max_signals_per_pool, 1024, "Signals one pool spec may declare");
+ABSL_FLAG(int32_t, max_feature_table, 1 << 24,
+          "Entries a pool's feature table may have (featureTableSize, or the recipe's tiles "
+          "when it is 0)");
+ABSL_FLAG(int32_t, max_ingest_calls, 4096,
+          "Ingest calls open at once across the daemon; past it a new call gets "
+          "RESOURCE_EXHAUSTED");
+ABSL_FLAG(int32_t, max_stream_frames_per_second, 100000,
+          "Frames per second one stream may send, averaged (a token bucket holding one "
+          "second's worth); a batch past it is refused with RESOURCE_EXHAUSTED and the "
+          "client backs off");
 ABSL_FLAG(int32_t, max_message_mib, 64, "Largest gRPC message accepted, MiB");
+ABSL_FLAG(std::string, http_auth_file, "",
+          "HTTP basic auth for --http (USER SHA256_HEX of the password per line; see README "
+          "Security); re-read on SIGHUP. Without it the HTTP port only binds loopback unless "
+          "--insecure-open is given");
 ABSL_FLAG(bool, insecure_open, false,
           "Allow a non-loopback --listen/--http without a token file (no authentication)");
 
@@ -171,10 +188,28 @@ int Main(int argc, char** argv) {
               << "--token-file (and TLS), or --insecure-open to accept that.\n";
     return 1;
   }
-  if (!http_flag.empty() && !IsLoopback(http_host) && !open) {
-    std::cerr << "bellwetherd: --http " << http_flag << " is not loopback: the status page and "
-              << "metrics have no authentication; give --insecure-open to accept that.\n";
+  const std::string http_auth_file = absl::GetFlag(FLAGS_http_auth_file);
+  if (!http_flag.empty() && !IsLoopback(http_host) && http_auth_file.empty() && !open) {
+    std::cerr << "bellwetherd: --http " << http_flag << " is not loopback and there is no "
+              << "--http-auth-file: anyone who can reach it could read every pool's "
+              << "predictions on the status page. Give --http-auth-file, or --insecure-open "
+              << "to accept that.\n";
     return 1;
+  }
+  std::unique_ptr<bellwether::server::HttpBasicAuth> http_auth;
+  if (!http_auth_file.empty()) {
+    if (http_flag.empty()) {
+      std::cerr << "bellwetherd: --http-auth-file needs --http\n";
+      return 1;
+    }
+    auto loaded = bellwether::server::HttpBasicAuth::Load(http_auth_file);
+    if (!loaded.ok()) {
+      std::cerr << "bellwetherd: " << loaded.status().message() << "\n";
+      return 1;
+    }
+    http_auth = *std::move(loaded);
+    std::cerr << "bellwetherd: " << http_auth->size() << " HTTP users from " << http_auth_file
+              << "\n";
   }
   std::unique_ptr<bellwether::server::TokenAuth> auth;
   if (!token_file.empty()) {
@@ -241,6 +276,12 @@ int Main(int argc, char** argv) {
         std::pair{"--max-streams-per-pool", absl::GetFlag(FLAGS_max_streams_per_pool)},
         std::pair{"--max-pool-mib", absl::GetFlag(FLAGS_max_pool_mib)},
         std::pair{"--max-batch-frames", absl::GetFlag(FLAGS_max_batch_frames)},
+        std::pair{"--max-questions-per-pool", absl::GetFlag(FLAGS_max_questions_per_pool)},
+        std::pair{"--max-signals-per-pool", absl::GetFlag(FLAGS_max_signals_per_pool)},
+        std::pair{"--max-feature-table", absl::GetFlag(FLAGS_max_feature_table)},
+        std::pair{"--max-ingest-calls", absl::GetFlag(FLAGS_max_ingest_calls)},
+        std::pair{"--max-stream-frames-per-second",
+                  absl::GetFlag(FLAGS_max_stream_frames_per_second)},
         std::pair{"--max-message-mib", absl::GetFlag(FLAGS_max_message_mib)}}) {
     if (value < 1) {
       std::cerr << "bellwetherd: " << name << " " << value << ": must be positive\n";
@@ -259,11 +300,18 @@ int Main(int argc, char** argv) {
   std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it
   worker_options.max_streams = static_cast<size_t>(absl::GetFlag(FLAGS_max_streams_per_pool));
   worker_options.max_pool_bytes = static_cast<uint64_t>(absl::GetFlag(FLAGS_max_pool_mib)) << 20;
-  bws::PoolRegistry registry(&metrics, worker_options,
-                             static_cast<size_t>(absl::GetFlag(FLAGS_max_pools)));
+  worker_options.max_stream_frames_per_second =
+      static_cast<double>(absl::GetFlag(FLAGS_max_stream_frames_per_second));
+  bws::PoolRegistry::Limits limits;
+  limits.max_pools = static_cast<size_t>(absl::GetFlag(FLAGS_max_pools));
+  limits.max_questions_per_pool = static_cast<size_t>(absl::GetFlag(FLAGS_max_questions_per_pool));
+  limits.max_signals_per_pool = static_cast<size_t>(absl::GetFlag(FLAGS_max_signals_per_pool));
+  limits.max_feature_table = static_cast<uint64_t>(absl::GetFlag(FLAGS_max_feature_table));
+  bws::PoolRegistry registry(&metrics, worker_options, limits);
   metrics.SetPoolSource(&registry);
   bws::BellwetherService::Options service_options;
   service_options.max_batch_frames = absl::GetFlag(FLAGS_max_batch_frames);
+  service_options.max_ingest_calls = absl::GetFlag(FLAGS_max_ingest_calls);
   bws::BellwetherService service(&registry, &metrics, service_options);
   service.SetAuth(auth.get());
   grpc::EnableDefaultHealthCheckService(true);
@@ -281,8 +329,17 @@ int Main(int argc, char** argv) {
   std::cout << "listening on " << host << ":" << port << std::endl;
   std::unique_ptr<bws::HttpServer> http;
   if (const std::string http_addr = absl::GetFlag(FLAGS_http); !http_addr.empty()) {
+    bws::HttpServer::Authorizer authorize;
+    if (http_auth != nullptr) {
+      authorize = [&http_auth, &metrics](const std::string& authorization) {
+        const bool ok = http_auth->Allows(authorization);
+        if (!ok) metrics.AuthFailed("http_unauthorized");
+        return ok;
+      };
+    }
     auto started = bws::HttpServer::Start(
-        http_addr, bws::StatusRoutes(&registry, &service, &metrics, kVersion));
+        http_addr, bws::StatusRoutes(&registry, &service, &metrics, kVersion),
+        std::move(authorize));
     if (!started.ok()) {
       std::cerr << "bellwetherd: " << started.status().message() << "\n";
       server->Shutdown();
@@ -349,7 +406,15 @@ int Main(int argc, char** argv) {
     while (true) {
       sigwait(&stop_signals, &sig);
       if (sig != SIGHUP) break;
-      // SIGHUP: re-read the token file (TLS files are re-read on their own schedule).
+      // SIGHUP: re-read the token and HTTP user files (TLS files are re-read on their own
+      // schedule).
+      if (http_auth != nullptr) {
+        const absl::Status s = http_auth->Reload();
+        std::cerr << "bellwetherd: SIGHUP: "
+                  << (s.ok() ? absl::StrCat("reloaded ", http_auth->size(), " HTTP users")
+                             : absl::StrCat("kept the old HTTP users: ", s.message()))
+                  << "\n";
+      }
       if (auth != nullptr) {
         const absl::Status s = auth->Reload();
         std::cerr << "bellwetherd: SIGHUP: "

@@ -11,9 +11,45 @@
 
 namespace bellwether::server {
 
-PoolRegistry::PoolRegistry(DaemonMetrics* metrics, PoolWorker::Options options,
-                           size_t max_pools)
-    : metrics_(metrics), options_(options), max_pools_(max_pools) {}
+PoolRegistry::PoolRegistry(DaemonMetrics* metrics, PoolWorker::Options options, Limits limits)
+    : metrics_(metrics), options_(options), limits_(limits) {}
+
+absl::Status PoolRegistry::CheckLimits(const v1::PoolSpec& spec,
+                                       const CompiledPoolSpec& compiled) const {
+  auto refuse = [&](const char* limit, std::string message) {
+    if (metrics_ != nullptr) metrics_->LimitRefused(limit);
+    return absl::ResourceExhaustedError(absl::StrCat("pool ", spec.name(), ": ", message));
+  };
+  if (static_cast<size_t>(spec.questions_size()) > limits_.max_questions_per_pool) {
+    return refuse("questions", absl::StrCat("questions: ", spec.questions_size(),
+                                            " questions; at most ", limits_.max_questions_per_pool,
+                                            " per pool (--max-questions-per-pool)"));
+  }
+  if (static_cast<size_t>(spec.signals_size()) > limits_.max_signals_per_pool) {
+    return refuse("signals", absl::StrCat("signals: ", spec.signals_size(), " signals; at most ",
+                                          limits_.max_signals_per_pool,
+                                          " per pool (--max-signals-per-pool)"));
+  }
+  const uint64_t table = compiled.recipe != nullptr ? compiled.recipe->num_features() : 0;
+  if (table > limits_.max_feature_table) {
+    return refuse("feature_table",
+                  absl::StrCat("featureTableSize: the feature table would have ", table,
+                               " entries; at most ", limits_.max_feature_table,
+                               " (--max-feature-table); set a smaller featureTableSize"));
+  }
+  const StateEstimate e = EstimateState(compiled);
+  if (e.shared_bytes + e.per_stream_bytes > options_.max_pool_bytes) {
+    return refuse(
+        "pool_memory",
+        absl::StrCat("its learned state would need about ",
+                     (e.shared_bytes + e.per_stream_bytes) >> 20, " MiB with one stream (",
+                     e.per_stream_bytes >> 20, " MiB per stream, ", e.shared_bytes >> 20,
+                     " MiB shared); the limit is ", options_.max_pool_bytes >> 20,
+                     " MiB (--max-pool-mib). Use fewer questions, a smaller featureTableSize, "
+                     "or POOLED learning"));
+  }
+  return absl::OkStatus();
+}
 
 PoolRegistry::~PoolRegistry() {
   absl::MutexLock lock(&mu_);
@@ -24,26 +60,18 @@ absl::StatusOr<v1::ApplyPoolResponse> PoolRegistry::Apply(const v1::PoolSpec& sp
                                                           bool create_only) {
   // Validate (and compile) before touching anything.
   BW_ASSIGN_OR_RETURN(std::unique_ptr<Pool> pool, Pool::Create(spec));
-  const StateEstimate e = EstimateState(pool->spec());
-  if (e.shared_bytes + e.per_stream_bytes > options_.max_pool_bytes) {
-    return absl::ResourceExhaustedError(absl::StrCat(
-        "pool ", spec.name(), ": its learned state would need about ",
-        (e.shared_bytes + e.per_stream_bytes) >> 20, " MiB with one stream (",
-        e.per_stream_bytes >> 20, " MiB per stream, ", e.shared_bytes >> 20,
-        " MiB shared); the limit is ", options_.max_pool_bytes >> 20,
-        " MiB (--max-pool-mib). Use fewer questions, a smaller featureTableSize, or POOLED "
-        "learning"));
-  }
+  BW_RETURN_IF_ERROR(CheckLimits(spec, pool->spec()));
   v1::ApplyPoolResponse response;
   std::shared_ptr<PoolWorker> existing;
   {
     absl::MutexLock lock(&mu_);
     auto it = pools_.find(spec.name());
     if (it == pools_.end()) {
-      if (pools_.size() >= max_pools_) {
+      if (pools_.size() >= limits_.max_pools) {
+        if (metrics_ != nullptr) metrics_->LimitRefused("pools");
         return absl::ResourceExhaustedError(absl::StrCat(
             "pool ", spec.name(), ": the daemon already has ", pools_.size(),
-            " pools (--max-pools ", max_pools_, ")"));
+            " pools (--max-pools ", limits_.max_pools, ")"));
       }
       response.set_created(true);
       for (const v1::QuestionSpec& q : spec.questions()) response.add_added(q.name());

@@ -18,13 +18,26 @@
 
 namespace bellwether::server {
 
+// What ApplyPool accepts. A spec past any of them is refused with RESOURCE_EXHAUSTED
+// naming the limit, its flag and the spec's figure (and counted in
+// bellwether_limit_refusals_total). The learned-state limit is the worker options'
+// max_pool_bytes.
+struct PoolLimits {
+  size_t max_pools = 1000;
+  size_t max_questions_per_pool = 4096;     // the spec's questions
+  size_t max_signals_per_pool = 1024;       // declared signals
+  uint64_t max_feature_table = 1u << 24;    // entries of the compiled feature table
+};
+
 class PoolRegistry {
  public:
+  using Limits = PoolLimits;
+
   // `metrics` may be null (no metrics); it must outlive the registry. `options` is the
   // template for every pool's worker (its `metrics` field is set per pool).
   explicit PoolRegistry(DaemonMetrics* metrics = nullptr,
                         PoolWorker::Options options = PoolWorker::Options(),
-                        size_t max_pools = 1000);
+                        Limits limits = Limits());
   ~PoolRegistry();
 
   // Creates the pool, or updates it (unchanged questions keep their learned state), and
@@ -62,7 +75,9 @@ class PoolRegistry {
  private:
   DaemonMetrics* const metrics_;
   PoolWorker::Options options_;
-  const size_t max_pools_;
+  const Limits limits_;
+  // Refuses `spec` if it is past a limit (counts the refusal).
+  absl::Status CheckLimits(const v1::PoolSpec& spec, const CompiledPoolSpec& compiled) const;
   mutable absl::Mutex mu_;
   std::map<std::string, std::shared_ptr<PoolWorker>> pools_ ABSL_GUARDED_BY(mu_);
 };

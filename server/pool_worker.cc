@@ -97,11 +97,48 @@ absl::Status PoolWorker::Submit(BatchTask task) {
         absl::StrCat("pool ", name_, ": ingest queue full (", options_.queue_capacity,
                      " batches waiting); back off and retry"));
   }
+  if (options_.max_stream_frames_per_second > 0 &&
+      !AdmitFramesLocked(*task.stream, static_cast<size_t>(task.batch->frames_size()))) {
+    if (m != nullptr) m->BatchRefused("rate_limited");
+    return absl::ResourceExhaustedError(absl::StrCat(
+        "pool ", name_, ": stream '", *task.stream, "' is sending faster than ",
+        options_.max_stream_frames_per_second,
+        " frames/s (--max-stream-frames-per-second); back off and retry"));
+  }
   Task t;
   t.batch = std::move(task);
   queue_.push_back(std::move(t));
   queue_depth_.store(queue_.size(), std::memory_order_relaxed);
   return absl::OkStatus();
+}
+
+bool PoolWorker::AdmitFramesLocked(const std::string& stream, size_t frames) {
+  const double rate = options_.max_stream_frames_per_second;
+  const auto now = std::chrono::steady_clock::now();
+  auto refill = [&](RateBucket& b) {
+    const double dt = std::chrono::duration<double>(now - b.last).count();
+    b.tokens = std::min(rate, b.tokens + rate * dt);
+    b.last = now;
+  };
+  // A flood of stream ids must not grow this map without bound: past the stream limit,
+  // buckets that are full again (idle for a second) are forgotten, which loses nothing.
+  if (rate_.size() > options_.max_streams + 1024) {
+    absl::erase_if(rate_, [&](auto& entry) {
+      refill(entry.second);
+      return entry.second.tokens >= rate;
+    });
+  }
+  auto [it, inserted] = rate_.try_emplace(stream);
+  RateBucket& b = it->second;
+  if (inserted) {
+    b.tokens = rate;
+    b.last = now;
+  } else {
+    refill(b);
+  }
+  if (b.tokens <= 0) return false;
+  b.tokens -= static_cast<double>(frames);
+  return true;
 }
 
 PoolWorker::BatchResult PoolWorker::ApplyBatch(const std::string& stream,

@@ -9,6 +9,7 @@
 #define BELLWETHER_SERVER_POOL_WORKER_H_
 
 #include <atomic>
+#include <chrono>
 #include <cstdint>
 #include <deque>
 #include <functional>
@@ -54,6 +55,12 @@ class PoolWorker {
     // RESOURCE_EXHAUSTED (refusal reason "stream_limit").
     size_t max_streams = 100000;
     uint64_t max_pool_bytes = uint64_t{2047} << 20;
+    // Frames per second one stream may send, averaged over a token bucket that holds one
+    // second's worth (a batch is admitted while the bucket is not empty and may leave it
+    // in debt, so any batch size gets through at the average rate). A batch past it is
+    // refused at Submit with RESOURCE_EXHAUSTED (refusal reason "rate_limited").
+    // 0: no limit.
+    double max_stream_frames_per_second = 0;
   };
 
   // The outcome of one batch.
@@ -188,6 +195,15 @@ class PoolWorker {
   std::deque<Task> queue_ ABSL_GUARDED_BY(queue_mu_);
   bool stopping_ ABSL_GUARDED_BY(queue_mu_) = false;
   std::atomic<size_t> queue_depth_{0};
+  // Per-stream frame-rate buckets (Options::max_stream_frames_per_second).
+  struct RateBucket {
+    double tokens = 0;
+    std::chrono::steady_clock::time_point last;
+  };
+  absl::flat_hash_map<std::string, RateBucket> rate_ ABSL_GUARDED_BY(queue_mu_);
+  // Whether `frames` more frames of `stream` are within the rate; takes them if so.
+  bool AdmitFramesLocked(const std::string& stream, size_t frames)
+      ABSL_EXCLUSIVE_LOCKS_REQUIRED(queue_mu_);
 
   mutable absl::Mutex snapshot_mu_;
   absl::flat_hash_map<std::string, std::shared_ptr<const StreamSnapshot>> snapshots_

@@ -202,7 +202,7 @@ TEST(Security, NonLoopbackWithoutTokensIsRefused) {
   const auto h = testing::RunCommand(
       {BW_DAEMON_PATH, "--listen", "127.0.0.1:0", "--http", "0.0.0.0:0"});
   EXPECT_EQ(h.exit_code, 1);
-  EXPECT_THAT(h.err, HasSubstr("no authentication"));
+  EXPECT_THAT(h.err, HasSubstr("--http-auth-file"));
   const std::string dir = testing::MakeTempDir("badtokens");
   std::ofstream(dir + "/t") << "name not-a-hash read\n";
   const auto b = testing::RunCommand(
@@ -403,6 +403,162 @@ TEST(Security, HostileInputIsRefusedAndLearnedStateIsIntact) {
             40 - 18);
   // The existing stream's answers and progress did not move.
   EXPECT_TRUE(steady() == before);
+}
+
+// An HTTP GET of `url`, with basic auth when `user` is given: the status code, then the
+// headers and body (urllib, so nothing of the daemon's code is on the client side).
+std::string HttpGet(const std::string& url, const std::string& user = "",
+                    const std::string& password = "") {
+  const auto r = testing::RunCommand(
+      {"/usr/bin/python3", "-c",
+       "import base64, sys, urllib.request, urllib.error\n"
+       "req = urllib.request.Request(sys.argv[1])\n"
+       "if sys.argv[2]:\n"
+       "    cred = base64.b64encode((sys.argv[2] + ':' + sys.argv[3]).encode()).decode()\n"
+       "    req.add_header('Authorization', 'Basic ' + cred)\n"
+       "try:\n"
+       "    r = urllib.request.urlopen(req, timeout=10)\n"
+       "    code, headers, body = r.status, r.headers, r.read()\n"
+       "except urllib.error.HTTPError as e:\n"
+       "    code, headers, body = e.code, e.headers, e.read()\n"
+       "sys.stdout.write(str(code) + '\\n' + str(headers) + body.decode())\n",
+       url, user, password});
+  EXPECT_EQ(r.exit_code, 0) << r.err;
+  return r.out;
+}
+
+double SeriesValue(const std::string& metrics_text, const std::string& series) {
+  std::istringstream in(metrics_text);
+  std::string line;
+  while (std::getline(in, line)) {
+    if (line.rfind(series + " ", 0) == 0) return std::stod(line.substr(series.size() + 1));
+  }
+  return -1;
+}
+
+// The limits on specs (questions, signals, feature table), on open ingest calls and on a
+// stream's frame rate: each refused with a clear error naming the flag, and counted.
+// And basic auth on the HTTP port, with its reload on SIGHUP.
+TEST(Security, SpecIngestAndHttpLimits) {
+  const std::string dir = testing::MakeTempDir("httpauth");
+  // Passwords are hashed with SHA-256, like tokens (checked against openssl below).
+  std::ofstream(dir + "/users") << "# metrics readers\nprom " << server::Sha256Hex("s3cret-prom")
+                                << "\n";
+  testing::DaemonProcess daemon(
+      {"--http", "127.0.0.1:0", "--http-auth-file", dir + "/users", "--max-questions-per-pool",
+       "3", "--max-signals-per-pool", "2", "--max-feature-table", "4096", "--max-ingest-calls",
+       "2", "--max-stream-frames-per-second", "10"});
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:"));
+  const std::string metrics_url = "http://" + daemon.http_address() + "/metrics";
+  auto client = Client::Connect(daemon.address());
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok());
+  ASSERT_TRUE(client->ApplyPool(*spec).ok());
+
+  v1::PoolSpec questions = *spec;
+  for (int i = 0; i < 3; ++i) {
+    v1::QuestionSpec* q = questions.add_questions();
+    *q = spec->questions(0);
+    q->set_name("extra" + std::to_string(i));
+  }
+  auto r = client->ApplyPool(questions);
+  EXPECT_EQ(r.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(r.status().message(),
+              HasSubstr("questions: 4 questions; at most 3 per pool (--max-questions-per-pool)"));
+  v1::PoolSpec signals = *spec;
+  for (const char* name : {"s2", "s3"}) {
+    v1::SignalSpec* sig = signals.add_signals();
+    sig->set_name(name);
+    sig->set_min(0);
+    sig->set_max(1);
+  }
+  r = client->ApplyPool(signals);
+  EXPECT_EQ(r.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(r.status().message(), HasSubstr("signals: 3 signals; at most 2"));
+  v1::PoolSpec table = *spec;  // 8 tilings of 1,000 tiles, each its own entry
+  table.mutable_features(0)->mutable_tiles()->set_tiles_per_dim(1000);
+  r = client->ApplyPool(table);
+  EXPECT_EQ(r.status().code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(r.status().message(), HasSubstr("entries; at most 4096 (--max-feature-table)"));
+  // The pool as it was is untouched by the refused updates.
+  auto described = client->DescribePool("grid");
+  ASSERT_TRUE(described.ok());
+  EXPECT_EQ(described->spec().questions_size(), 1);
+
+  // Frame rate: 10 frames/s with a one-second bucket. The first batch of 30 is admitted
+  // (the bucket goes into debt), the next one is refused until the debt is paid.
+  auto batch_of = [](uint64_t first, int n) {
+    v1::FrameBatch b;
+    for (int i = 0; i < n; ++i) {
+      v1::Frame* f = b.add_frames();
+      f->set_seq(first + static_cast<uint64_t>(i));
+      f->set_local_micros(static_cast<int64_t>(first + static_cast<uint64_t>(i)) * 1800 * 1000000);
+      f->add_values(25000 + i);
+    }
+    return b;
+  };
+  {
+    auto fast = client->OpenIngest("grid", "fast", {});
+    ASSERT_TRUE(fast.ok());
+    ASSERT_TRUE((*fast)->Send(batch_of(1, 30)).ok());
+    auto refused = (*fast)->Send(batch_of(31, 30));
+    EXPECT_EQ(refused.status().code(), absl::StatusCode::kResourceExhausted);
+    EXPECT_THAT(refused.status().message(),
+                HasSubstr("faster than 10 frames/s (--max-stream-frames-per-second)"));
+  }
+  auto fast_state = client->Predict("grid", "fast");
+  ASSERT_TRUE(fast_state.ok());
+  EXPECT_EQ(fast_state->as_of_seq(), 30u) << "nothing of the refused batch applied";
+
+  // Open ingest calls: two may be open; the third is refused at once.
+  // (The closed call above ends on the daemon's side a moment after the client lets go,
+  // so the second call may need a retry.)
+  auto one = client->OpenIngest("grid", "one", {});
+  ASSERT_TRUE(one.ok());
+  ASSERT_TRUE((*one)->Send(batch_of(1, 1)).ok());
+  std::unique_ptr<IngestSession> two;
+  for (int i = 0; i < 100 && two == nullptr; ++i) {
+    auto opened = client->OpenIngest("grid", "two", {});
+    ASSERT_TRUE(opened.ok());
+    if ((*opened)->Send(batch_of(1, 1)).ok()) {
+      two = *std::move(opened);
+    } else {
+      std::this_thread::sleep_for(std::chrono::milliseconds(20));
+    }
+  }
+  ASSERT_NE(two, nullptr);
+  auto three = client->OpenIngest("grid", "three", {});
+  absl::Status third = three.ok() ? (*three)->Send(batch_of(1, 1)).status() : three.status();
+  EXPECT_EQ(third.code(), absl::StatusCode::kResourceExhausted);
+  EXPECT_THAT(third.message(), HasSubstr("--max-ingest-calls 2"));
+
+  // Basic auth on the HTTP port: no credentials, a wrong password, an unknown user: 401
+  // with a Basic challenge; the right password: the metrics, with each refusal counted.
+  const std::string none = HttpGet(metrics_url);
+  EXPECT_EQ(none.substr(0, 4), "401\n") << none;
+  EXPECT_THAT(none, HasSubstr("WWW-Authenticate: Basic realm=\"bellwether\""));
+  EXPECT_EQ(HttpGet(metrics_url, "prom", "wrong").substr(0, 4), "401\n");
+  EXPECT_EQ(HttpGet(metrics_url, "nobody", "s3cret-prom").substr(0, 4), "401\n");
+  const std::string ok = HttpGet(metrics_url, "prom", "s3cret-prom");
+  ASSERT_EQ(ok.substr(0, 4), "200\n") << ok;
+  EXPECT_EQ(SeriesValue(ok, "bellwether_limit_refusals_total{limit=\"questions\"}"), 1);
+  EXPECT_EQ(SeriesValue(ok, "bellwether_limit_refusals_total{limit=\"signals\"}"), 1);
+  EXPECT_EQ(SeriesValue(ok, "bellwether_limit_refusals_total{limit=\"feature_table\"}"), 1);
+  EXPECT_GE(SeriesValue(ok, "bellwether_limit_refusals_total{limit=\"ingest_calls\"}"), 1);
+  EXPECT_EQ(SeriesValue(ok, "bellwether_ingest_batches_refused_total{pool=\"grid\",reason=\"rate_limited\"}"), 1);
+  EXPECT_EQ(SeriesValue(ok, "bellwether_auth_failures_total{reason=\"http_unauthorized\"}"), 3);
+
+  // SIGHUP re-reads the users: the old password stops working, the new one works.
+  std::ofstream(dir + "/users.new") << "prom " << server::Sha256Hex("rotated-pw") << "\n";
+  ASSERT_EQ(std::rename((dir + "/users.new").c_str(), (dir + "/users").c_str()), 0);
+  daemon.Signal(SIGHUP);
+  bool rotated = false;
+  for (int i = 0; i < 100 && !rotated; ++i) {
+    rotated = HttpGet(metrics_url, "prom", "rotated-pw").substr(0, 4) == "200\n";
+    if (!rotated) std::this_thread::sleep_for(std::chrono::milliseconds(50));
+  }
+  EXPECT_TRUE(rotated);
+  EXPECT_EQ(HttpGet(metrics_url, "prom", "s3cret-prom").substr(0, 4), "401\n");
 }
 
 TEST(Security, TokenHashIsSha256) {
