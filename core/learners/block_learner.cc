@@ -353,11 +353,11 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
       float* a1 = scratch_.data();
       float* a2 = scratch_.data() + nq;
       for (uint32_t q = 0; q < nq; ++q) {
-        const double vq = v_[q];
+        const double vq = static_cast<double>(v_[q]);
         const double dv = vq - state.v_old[q];
         a1[q] = static_cast<float>(dscratch_[q] * dutch_alpha * (static_cast<double>(delta_[q]) + dv));
         a2[q] = static_cast<float>(dscratch_[q] * dutch_alpha * dv);
-        if (dscratch_[q] != 0.0) state.v_old[q] = v_next_[q];
+        if (dscratch_[q] != 0.0) state.v_old[q] = static_cast<double>(v_next_[q]);
       }
       for (uint32_t r : rows) {
         const float er = e.value(r);
