@@ -47,11 +47,19 @@ bool SplitCsv(const std::string& line, std::vector<std::string>* cells) {
   return !quoted;
 }
 
+// Times further than this from 1970 (about 317,000 years) are refused rather than
+// saturated into the largest representable time.
+constexpr double kMaxAbsUnixSeconds = 1e13;
+
+bool InRange(absl::Time t) {
+  return absl::AbsDuration(t - absl::UnixEpoch()) <= absl::Seconds(kMaxAbsUnixSeconds);
+}
+
 // Parses a timestamp cell into the frame's time.
 bool ParseTimestamp(std::string text, v1::Frame* frame) {
   double seconds = 0;
   if (absl::SimpleAtod(text, &seconds)) {
-    if (!std::isfinite(seconds) || std::fabs(seconds) > 1e13) return false;
+    if (!std::isfinite(seconds) || std::fabs(seconds) > kMaxAbsUnixSeconds) return false;
     frame->set_unix_micros(static_cast<int64_t>(std::llround(seconds * 1e6)));
     return true;
   }
@@ -59,12 +67,14 @@ bool ParseTimestamp(std::string text, v1::Frame* frame) {
   absl::Time t;
   std::string err;
   if (absl::ParseTime(absl::RFC3339_full, text, &t, &err)) {
+    if (!InRange(t)) return false;
     frame->set_unix_micros(absl::ToUnixMicros(t));
     return true;
   }
   // No offset: wall-clock time, interpreted in the pool's zone by the engine.
   if (absl::ParseTime("%Y-%m-%d%ET%H:%M:%E*S", text, absl::UTCTimeZone(), &t, &err) ||
       absl::ParseTime("%Y-%m-%d%ET%H:%M", text, absl::UTCTimeZone(), &t, &err)) {
+    if (!InRange(t)) return false;
     frame->set_local_micros(absl::ToUnixMicros(t));
     return true;
   }
@@ -152,7 +162,8 @@ absl::StatusOr<bool> CsvFrameReader::Next(v1::Frame* frame) {
   if (timestamp_col_ >= 0 && !cells_[timestamp_col_].empty()) {
     if (!ParseTimestamp(cells_[timestamp_col_], frame)) {
       return CellError(timestamp_col_, absl::StrCat("'", cells_[timestamp_col_],
-                                                    "' is not an ISO 8601 time or Unix seconds"));
+                                                    "' is not an ISO 8601 time or Unix seconds "
+                                                    "within 10^13 s of 1970"));
     }
   }
   if (action_col_ >= 0 && !cells_[action_col_].empty()) {

@@ -76,6 +76,13 @@ TEST(CsvFrameReader, BadRowsNameFileLineColumnAndReason) {
   r = Reader("timestamp,x\nyesterday,1\n");
   EXPECT_THAT(r->Next(&f).status().message(), HasSubstr("column 'timestamp': 'yesterday'"));
 
+  // A year that parses but lies past any representable time is refused, not saturated
+  // (found by the CSV fuzz harness: 20262026-01-01 became the largest int64).
+  for (const char* far : {"20262026-01-01T00:00:00", "20262026-01-01T00:00:00Z", "1e14"}) {
+    r = Reader(std::string("timestamp,x\n") + far + ",1\n");
+    EXPECT_THAT(r->Next(&f).status().message(), HasSubstr("within 10^13 s of 1970")) << far;
+  }
+
   r = Reader("restart,x\nmaybe,1\n");
   EXPECT_THAT(r->Next(&f).status().message(), HasSubstr("column 'restart'"));
 
