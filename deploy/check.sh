@@ -9,12 +9,11 @@ cd "$build"
 ctest --output-on-failure --parallel "$(nproc 2>/dev/null || echo 2)" --timeout 600
 
 # The fuzz harnesses of the loaders of hostile input (tests/fuzz/run.sh): a clang-14 build
-# in build-fuzz, then each harness for BELLWETHER_FUZZ_SECONDS seconds (0, the default, skips) from
-# the committed seeds. A crash fails the check; its input and log go to
-# build-fuzz/fuzz-findings/. Off by default until its CI time is measured on a clean
-# machine: BELLWETHER_FUZZ_SECONDS=60 deploy/check.sh runs it.
-if [ "${BELLWETHER_FUZZ_SECONDS:-0}" != 0 ]; then
-  "$root/tests/fuzz/run.sh" "${BELLWETHER_FUZZ_SECONDS}"
+# in build-fuzz, then each harness for BELLWETHER_FUZZ_SECONDS seconds (default 60; 0
+# skips) from the committed seeds. A crash fails the check; its input and log go to
+# build-fuzz/fuzz-findings/. About 5 minutes on 2 cores, build included.
+if [ "${BELLWETHER_FUZZ_SECONDS:-60}" != 0 ]; then
+  "$root/tests/fuzz/run.sh" "${BELLWETHER_FUZZ_SECONDS:-60}"
 fi
 
 # Second stage: every test again, built with AddressSanitizer + UndefinedBehaviorSanitizer
@@ -26,9 +25,9 @@ fi
 # write theirs to build-asan/sanitizer-logs/ (log_path), and UBSan's (which ignores
 # log_path when ASan is linked in) is looked for in the output of every test, passed or
 # not (Testing/Temporary/LastTest.log). Any report fails the stage, as does any failing
-# test. Off by default until its CI time is measured on a clean machine:
-# BELLWETHER_CHECK_SANITIZE=1 deploy/check.sh runs it.
-if [ "${BELLWETHER_CHECK_SANITIZE:-0}" != 0 ]; then
+# test. About 10 minutes on 2 cores, build included; BELLWETHER_CHECK_SANITIZE=0 skips it
+# (and BELLWETHER_FUZZ_SECONDS=0 the fuzz stage) for a quick local run.
+if [ "${BELLWETHER_CHECK_SANITIZE:-1}" != 0 ]; then
   start=$SECONDS
   asan=${BELLWETHER_ASAN_BUILD_DIR:-$root/build-asan}
   BELLWETHER_BUILD_DIR=$asan "$root/deploy/build.sh" -DBELLWETHER_SANITIZE=ON
