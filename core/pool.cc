@@ -684,7 +684,10 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
 namespace {
 
 constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
-constexpr uint32_t kPoolStateVersion = 2;  // 2: per-stream frames_applied
+// 2: per-stream frames_applied. 3: verifiers hold returns as differences of running
+// sums (version 2 payloads are still read).
+constexpr uint32_t kPoolStateVersion = 3;
+constexpr uint32_t kOldestPoolStateVersion = 2;
 
 void SaveSparse(StateWriter& w, const SparseFeatures& x) {
   w.PutVector(x.index);
@@ -744,11 +747,12 @@ absl::Status Pool::RestoreState(absl::string_view state) {
     r.Fail("not a pool state (bad magic)");
     return r.status();
   }
-  if (version != kPoolStateVersion) {
+  if (version < kOldestPoolStateVersion || version > kPoolStateVersion) {
     return absl::FailedPreconditionError(absl::StrCat(
-        "pool state format version ", version, " is not supported (this build reads version ",
-        kPoolStateVersion, ")"));
+        "pool state format version ", version, " is not supported (this build reads versions ",
+        kOldestPoolStateVersion, " to ", kPoolStateVersion, ")"));
   }
+  r.set_version(version);
   auto bad = [&r](absl::string_view what) {
     r.Fail(what);
     return r.status();

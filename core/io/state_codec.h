@@ -99,6 +99,10 @@ class StateReader {
 
   size_t offset() const { return pos_; }
   bool done() const { return pos_ == in_.size(); }
+  // The payload's format version, for loaders that read older layouts (set by whoever
+  // read the header; 0 if unknown).
+  void set_version(uint32_t version) { version_ = version; }
+  uint32_t version() const { return version_; }
   // OK, or DATA_LOSS naming what was bad and where.
   absl::Status status() const {
     return error_.empty() ? absl::OkStatus() : absl::DataLossError(error_);
@@ -122,6 +126,7 @@ class StateReader {
 
   absl::string_view in_;
   size_t pos_ = 0;
+  uint32_t version_ = 0;
   std::string error_;
 };
 

@@ -25,48 +25,73 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
     Interrupt();
     return;
   }
-  const bool weighted = mode_ == VerificationMode::kImportanceWeighted;
-  const size_t cap = held_.size();
-  for (size_t i = 0; i < held_count_; ++i) {
-    Held& h = held_[(held_start_ + i) % cap];
-    if (weighted) h.weight *= rho;
-    h.realized += h.discount * h.weight * c;
-    h.discount *= continuation;
-    ++h.steps;
-  }
+  if (held_count_ == 0) return;  // nothing waits for this cumulant
+  if (mode_ == VerificationMode::kImportanceWeighted) wt_ *= rho;
+  acc_ += disc_ * wt_ * c;
+  disc_ *= continuation;
+  ++step_;
   // Oldest first: it has the smallest remaining discount.
+  const size_t cap = held_.size();
   while (held_count_ > 0) {
     const Held& h = held_[held_start_];
-    const bool done = h.discount < kDiscountFloor || h.weight == 0.0;
-    const bool capped = h.steps >= horizon_;
+    const double discount = disc_ / h.disc0;
+    const bool done = discount < kDiscountFloor || wt_ == 0.0;
+    const bool capped = step_ - h.held_at >= static_cast<int64_t>(horizon_);
     if (!done && !capped) break;
-    Verify(h, !done);
+    Verify(h, Realized(h), wt_ == 0.0 ? 0.0 : wt_ / h.wt0, !done);
     held_start_ = (held_start_ + 1) % cap;
     --held_count_;
   }
+  if (held_count_ == 0) {
+    acc_ = 0;
+    disc_ = 1;
+    wt_ = 1;
+  } else if (const double scale = disc_ * wt_; scale < 1e-3 || scale > 1e3 || wt_ < 1e-3) {
+    Rebase();
+  }
+}
+
+void ReturnVerifier::Rebase() {
+  const size_t cap = held_.size();
+  for (size_t i = 0; i < held_count_; ++i) {
+    Held& h = held_[(held_start_ + i) % cap];
+    h.base = Realized(h);
+    h.acc0 = 0;
+    h.disc0 /= disc_;
+    h.wt0 /= wt_;
+    h.inv_scale = 1.0 / (h.disc0 * h.wt0);
+  }
+  acc_ = 0;
+  disc_ = 1;
+  wt_ = 1;
 }
 
 void ReturnVerifier::Interrupt() {
   totals_.unverifiable += held_count_;
   held_count_ = 0;
   held_start_ = 0;
+  acc_ = 0;
+  disc_ = 1;
+  wt_ = 1;
 }
 
 void ReturnVerifier::Hold(double prediction, uint64_t seq) {
   const size_t cap = held_.size();
   if (held_count_ == cap) {  // cannot happen: Observe releases at the horizon
-    Verify(held_[held_start_], true);
+    const Held& h = held_[held_start_];
+    Verify(h, Realized(h), wt_ / h.wt0, true);
     held_start_ = (held_start_ + 1) % cap;
     --held_count_;
   }
-  held_[(held_start_ + held_count_) % cap] = Held{prediction, 0.0, 1.0, 1.0, seq, 0};
+  held_[(held_start_ + held_count_) % cap] =
+      Held{prediction, 0.0, acc_, disc_, wt_, 1.0 / (disc_ * wt_), seq, step_};
   ++held_count_;
 }
 
-void ReturnVerifier::Verify(const Held& h, bool truncated) {
+void ReturnVerifier::Verify(const Held& h, double realized, double weight, bool truncated) {
   ++totals_.count;
   if (truncated) ++totals_.truncated;
-  window_[window_next_] = Verified{h.prediction - h.realized, h.realized, h.weight};
+  window_[window_next_] = Verified{h.prediction - realized, realized, weight};
   window_next_ = (window_next_ + 1) % window_.size();
   window_count_ = std::min(window_count_ + 1, window_.size());
   if (probability_) {
@@ -74,9 +99,9 @@ void ReturnVerifier::Verify(const Held& h, bool truncated) {
     CalibrationBin& bin = totals_.calibration[std::min<size_t>(static_cast<size_t>(p * 10), 9)];
     ++bin.count;
     bin.sum_predicted += h.prediction;
-    bin.sum_observed += h.realized;
+    bin.sum_observed += realized;
   }
-  if (sink_) sink_(h.seq, h.prediction, h.realized, truncated);
+  if (sink_) sink_(h.seq, h.prediction, realized, truncated);
 }
 
 VerifiedErrorStats ReturnVerifier::stats() const {
@@ -111,15 +136,21 @@ void ReturnVerifier::SaveState(StateWriter& w) const {
   w.Put<uint64_t>(held_.size());
   w.Put<uint64_t>(held_start_);
   w.Put<uint64_t>(held_count_);
+  w.Put(acc_);
+  w.Put(disc_);
+  w.Put(wt_);
+  w.Put(step_);
   const size_t cap = held_.size();
   for (size_t i = 0; i < held_count_; ++i) {
     const Held& h = held_[(held_start_ + i) % cap];
     w.Put(h.prediction);
-    w.Put(h.realized);
-    w.Put(h.discount);
-    w.Put(h.weight);
+    w.Put(h.base);
+    w.Put(h.acc0);
+    w.Put(h.disc0);
+    w.Put(h.wt0);
+    w.Put(h.inv_scale);
     w.Put(h.seq);
-    w.Put(h.steps);
+    w.Put(h.held_at);
   }
   w.Put<uint64_t>(window_.size());
   w.Put<uint64_t>(window_next_);
@@ -146,11 +177,44 @@ bool ReturnVerifier::LoadState(StateReader& r) {
   if (start >= cap || count > cap) return r.Fail("verifier ring index out of range");
   held_start_ = start;
   held_count_ = count;
-  for (size_t i = 0; i < count; ++i) {
-    Held& h = held_[(start + i) % cap];
-    if (!r.Get(&h.prediction) || !r.Get(&h.realized) || !r.Get(&h.discount) ||
-        !r.Get(&h.weight) || !r.Get(&h.seq) || !r.Get(&h.steps)) {
-      return false;
+  if (r.version() >= 3) {
+    if (!r.Get(&acc_) || !r.Get(&disc_) || !r.Get(&wt_) || !r.Get(&step_)) return false;
+    if (!std::isfinite(acc_) || !(disc_ > 0 && disc_ <= 1) || !(wt_ > 0) || !std::isfinite(wt_)) {
+      return r.Fail("verifier running sums out of range");
+    }
+    for (size_t i = 0; i < count; ++i) {
+      Held& h = held_[(start + i) % cap];
+      if (!r.Get(&h.prediction) || !r.Get(&h.base) || !r.Get(&h.acc0) || !r.Get(&h.disc0) ||
+          !r.Get(&h.wt0) || !r.Get(&h.inv_scale) || !r.Get(&h.seq) || !r.Get(&h.held_at)) {
+        return false;
+      }
+      if (!(h.disc0 > 0) || !(h.wt0 > 0) || !std::isfinite(h.inv_scale) ||
+          h.held_at > step_) {
+        return r.Fail("held prediction out of range");
+      }
+    }
+  } else {
+    // Version 2 kept each prediction's return so far, discount and weight: they become
+    // bases over fresh sums.
+    acc_ = 0;
+    disc_ = 1;
+    wt_ = 1;
+    step_ = 0;
+    for (size_t i = 0; i < count; ++i) {
+      Held& h = held_[(start + i) % cap];
+      double realized = 0, discount = 0, weight = 0;
+      uint32_t steps = 0;
+      if (!r.Get(&h.prediction) || !r.Get(&realized) || !r.Get(&discount) || !r.Get(&weight) ||
+          !r.Get(&h.seq) || !r.Get(&steps)) {
+        return false;
+      }
+      if (!(discount > 0) || !(weight > 0)) return r.Fail("held prediction out of range");
+      h.base = realized;
+      h.acc0 = 0;
+      h.disc0 = 1.0 / discount;
+      h.wt0 = 1.0 / weight;
+      h.inv_scale = discount * weight;
+      h.held_at = -static_cast<int64_t>(steps);
     }
   }
   uint64_t wsize = 0, wnext = 0, wcount = 0;
