@@ -1,6 +1,7 @@
 #include "core/learners/block_learner.h"
 
 #include "core/io/state_codec.h"
+#include "core/learners/fast_exp.h"
 
 #include <algorithm>
 #include <cmath>
@@ -157,6 +158,7 @@ BlockLearner::BlockLearner(uint32_t max_rows, uint32_t max_cols, uint32_t num_ac
   scratch_.resize(max_cols * 4);
   dscratch_.resize(max_cols * 4);
   wsq_.resize(max_cols);
+  wsq_f_.resize(max_cols);
   pi_buf_.resize(num_actions_ * 2);
   q_buf_.resize(num_actions_ * 2);
   x_dense_.assign(max_rows, 0.0f);
@@ -491,36 +493,50 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
                                  const std::vector<CompiledQuestion>& questions,
                                  const BlockStep& step, double /*norm_sq*/,
                                  const SparseTrace& e, BlockParams& p) {
+  // The loops over a row's questions are branch-free (a skipped question is masked with
+  // a select, and its TD error is 0), so the compiler vectorizes them; ExpF is a
+  // polynomial exp it can vectorize too.
   const uint32_t nq = p.cols();
   const std::vector<uint32_t>& rows = e.active();
   const float gamma_next = static_cast<float>(step.gamma_next);
-  float* meta = scratch_.data();
-  float* msum = scratch_.data() + nq;
+  // Disjoint parts of the scratch buffer.
+  float* __restrict meta = scratch_.data();
+  float* __restrict msum = scratch_.data() + nq;
+  float* __restrict on = scratch_.data() + 3 * nq;  // 1 where the question learns this step
+  float* __restrict wsq = wsq_f_.data();
   for (uint32_t q = 0; q < nq; ++q) {
     meta[q] = static_cast<float>(questions[spec.questions[q]].meta_step_size);
     msum[q] = 0.0f;
-    wsq_[q] = 0.0;
+    wsq[q] = 0.0f;
+    on[q] = dscratch_[q] != 0.0 ? 1.0f : 0.0f;
   }
-  const float* delta = delta_.data();
-  const double* mask = dscratch_.data();
+  const float* __restrict delta = delta_.data();
   if (spec.step_rule == StepRuleKind::kAutostep) {
     const float inv_tau = 1.0f / kAutostepTau;
     // Pass 1: adapt alpha_i, accumulate the effective step M per question.
     for (uint32_t r : rows) {
       const float er = e.value(r), xr = x_dense_[r], xnr = xn_dense_[r];
+      const float dx = xr - gamma_next * xnr;
       const size_t base = static_cast<size_t>(r) * nq;
       float* __restrict alpha = &p.alpha_[base];
-      float* __restrict h = &p.ss_h_[base];
+      const float* __restrict h = &p.ss_h_[base];
       float* __restrict v = &p.ss_v_[base];
+      float* __restrict ratio = scratch_.data() + 2 * nq;
       for (uint32_t q = 0; q < nq; ++q) {
-        if (mask[q] == 0.0) continue;
         const float gh = delta[q] * er * h[q];
         const float u = std::fabs(gh);
-        v[q] = std::max(u, v[q] + inv_tau * alpha[q] * xr * er * (u - v[q]));
-        if (v[q] > 0.0f) alpha[q] *= std::exp(meta[q] * gh / v[q]);
-        msum[q] += alpha[q] * er * (xr - gamma_next * xnr);
+        const float vn = std::max(u, v[q] + inv_tau * alpha[q] * xr * er * (u - v[q]));
+        // vn >= |gh|, so vn == 0 means gh == 0 and the step keeps alpha (exp(0) = 1).
+        ratio[q] = meta[q] * gh / std::max(vn, std::numeric_limits<float>::min());
+        v[q] = on[q] != 0.0f ? vn : v[q];
+      }
+      for (uint32_t q = 0; q < nq; ++q) {
+        const float an = alpha[q] * ExpF(ratio[q]);
+        alpha[q] = on[q] != 0.0f ? an : alpha[q];
+        msum[q] += on[q] * (an * er * dx);
       }
     }
+    // A skipped question's sum is 0, so its factor is 1: its alpha is left as it was.
     for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
     // Pass 2: normalize, update weights and h.
     for (uint32_t r : rows) {
@@ -530,12 +546,12 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
       float* __restrict h = &p.ss_h_[base];
       float* __restrict w = &p.w_[base];
       for (uint32_t q = 0; q < nq; ++q) {
-        if (mask[q] == 0.0) continue;
         alpha[q] *= msum[q];
-        const float step_w = alpha[q] * delta[q] * er;
+        const float step_w = alpha[q] * delta[q] * er;  // 0 for a skipped question
         w[q] += step_w;
-        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
-        h[q] = h[q] * std::max(0.0f, 1.0f - alpha[q] * xr * er) + step_w;
+        wsq[q] += step_w * step_w;
+        const float hn = h[q] * std::max(0.0f, 1.0f - alpha[q] * xr * er) + step_w;
+        h[q] = on[q] != 0.0f ? hn : h[q];
       }
     }
   } else if (spec.step_rule == StepRuleKind::kSettling) {
@@ -553,23 +569,27 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
       const float x_sq = x.value[k] * x.value[k];
       float* __restrict o = &p.alpha_[base];
       for (uint32_t q = 0; q < nq; ++q) {
-        if (mask[q] == 0.0) continue;
-        o[q] += alpha[q] * (1.0f - o[q]);
-        msum[q] += alpha[q] / o[q] * x_sq;
+        const float on_ = o[q] + alpha[q] * (1.0f - o[q]);
+        const bool learn = on[q] != 0.0f;
+        o[q] = learn ? on_ : o[q];
+        msum[q] += learn ? alpha[q] / on_ * x_sq : 0.0f;
       }
     }
-    for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
+    // Per question: alpha / M * delta (0 for a skipped question).
+    for (uint32_t q = 0; q < nq; ++q) {
+      msum[q] = alpha[q] / std::max(msum[q], 1.0f) * delta[q];
+    }
     // Pass 2: w_i += (alpha / o_i / M) delta e_i over the trace.
     for (uint32_t r : rows) {
       const float er = e.value(r);
       const size_t base = static_cast<size_t>(r) * nq;
-      const float* o = &p.alpha_[base];
+      const float* __restrict o = &p.alpha_[base];
       float* __restrict w = &p.w_[base];
       for (uint32_t q = 0; q < nq; ++q) {
-        if (mask[q] == 0.0 || o[q] <= 0.0f) continue;
-        const float step_w = alpha[q] / o[q] * msum[q] * delta[q] * er;
+        const float inv_o = o[q] > 0.0f ? 1.0f / std::max(o[q], 1e-30f) : 0.0f;
+        const float step_w = msum[q] * inv_o * er;
         w[q] += step_w;
-        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
+        wsq[q] += step_w * step_w;
       }
     }
   } else {  // TIDBD
@@ -580,16 +600,18 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
       float* __restrict h = &p.ss_h_[base];
       float* __restrict w = &p.w_[base];
       for (uint32_t q = 0; q < nq; ++q) {
-        if (mask[q] == 0.0) continue;
+        // A skipped question's TD error is 0: its beta and weight stay; h is masked.
         beta[q] = std::clamp(beta[q] + meta[q] * delta[q] * xr * h[q], kMinLogStep, kMaxLogStep);
-        const float alpha = std::exp(beta[q]);
+        const float alpha = ExpF(beta[q]);
         const float step_w = alpha * delta[q] * er;
         w[q] += step_w;
-        wsq_[q] += static_cast<double>(step_w) * static_cast<double>(step_w);
-        h[q] = h[q] * std::max(0.0f, 1.0f - alpha * xr * er) + step_w;
+        wsq[q] += step_w * step_w;
+        const float hn = h[q] * std::max(0.0f, 1.0f - alpha * xr * er) + step_w;
+        h[q] = on[q] != 0.0f ? hn : h[q];
       }
     }
   }
+  for (uint32_t q = 0; q < nq; ++q) wsq_[q] = static_cast<double>(wsq[q]);
 }
 
 void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, double norm_sq,

@@ -205,6 +205,7 @@ class BlockLearner {
   uint32_t num_actions_;
   std::vector<float> v_, v_next_, delta_, scratch_;
   std::vector<double> dscratch_, pi_buf_, q_buf_, wsq_;
+  std::vector<float> wsq_f_;
   std::vector<float> x_dense_, xn_dense_;  // feature values by row for the current step
 };
 
