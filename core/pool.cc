@@ -685,8 +685,8 @@ namespace {
 
 constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
 // 2: per-stream frames_applied. 3: verifiers hold returns as differences of running
-// sums (version 2 payloads are still read).
-constexpr uint32_t kPoolStateVersion = 3;
+// sums. 4: verifiers keep their window's sums. (Versions 2 and 3 are still read.)
+constexpr uint32_t kPoolStateVersion = 4;
 constexpr uint32_t kOldestPoolStateVersion = 2;
 
 void SaveSparse(StateWriter& w, const SparseFeatures& x) {

@@ -91,9 +91,26 @@ void ReturnVerifier::Hold(double prediction, uint64_t seq) {
 void ReturnVerifier::Verify(const Held& h, double realized, double weight, bool truncated) {
   ++totals_.count;
   if (truncated) ++totals_.truncated;
-  window_[window_next_] = Verified{h.prediction - realized, realized, weight};
+  const Verified added{h.prediction - realized, realized, weight};
+  if (window_count_ == window_.size()) {
+    const Verified& gone = window_[window_next_];
+    sums_[0] -= gone.error;
+    sums_[1] -= gone.error * gone.error;
+    sums_[2] -= gone.realized;
+    sums_[3] -= gone.realized * gone.realized;
+    sums_[4] -= gone.weight;
+    sums_[5] -= gone.weight * gone.weight;
+  }
+  window_[window_next_] = added;
+  sums_[0] += added.error;
+  sums_[1] += added.error * added.error;
+  sums_[2] += added.realized;
+  sums_[3] += added.realized * added.realized;
+  sums_[4] += added.weight;
+  sums_[5] += added.weight * added.weight;
   window_next_ = (window_next_ + 1) % window_.size();
   window_count_ = std::min(window_count_ + 1, window_.size());
+  if (window_next_ == 0) RecomputeSums();
   if (probability_) {
     const double p = std::clamp(h.prediction, 0.0, 1.0);
     CalibrationBin& bin = totals_.calibration[std::min<size_t>(static_cast<size_t>(p * 10), 9)];
@@ -108,17 +125,8 @@ VerifiedErrorStats ReturnVerifier::stats() const {
   VerifiedErrorStats s = totals_;
   s.window = static_cast<uint32_t>(window_count_);
   if (window_count_ == 0) return s;
-  // Summed on demand (a read, not the frame path): no running-sum drift.
-  double sum = 0, sum_sq = 0, r_sum = 0, r_sq = 0, w_sum = 0, w_sq = 0;
-  for (size_t i = 0; i < window_count_; ++i) {
-    const Verified& v = window_[i];
-    sum += v.error;
-    sum_sq += v.error * v.error;
-    r_sum += v.realized;
-    r_sq += v.realized * v.realized;
-    w_sum += v.weight;
-    w_sq += v.weight * v.weight;
-  }
+  const double sum = sums_[0], sum_sq = std::max(0.0, sums_[1]), r_sum = sums_[2],
+               r_sq = std::max(0.0, sums_[3]), w_sum = sums_[4], w_sq = std::max(0.0, sums_[5]);
   const double n = static_cast<double>(window_count_);
   s.bias = sum / n;
   s.rmse = std::sqrt(sum_sq / n);
@@ -126,6 +134,19 @@ VerifiedErrorStats ReturnVerifier::stats() const {
   s.nrmse = var > 0 ? s.rmse / std::sqrt(var) : 0.0;
   s.effective_sample_size = w_sq > 0 ? w_sum * w_sum / w_sq : 0.0;
   return s;
+}
+
+void ReturnVerifier::RecomputeSums() {
+  sums_ = {};
+  for (size_t i = 0; i < window_count_; ++i) {
+    const Verified& v = window_[i];
+    sums_[0] += v.error;
+    sums_[1] += v.error * v.error;
+    sums_[2] += v.realized;
+    sums_[3] += v.realized * v.realized;
+    sums_[4] += v.weight;
+    sums_[5] += v.weight * v.weight;
+  }
 }
 
 size_t ReturnVerifier::memory_bytes() const {
@@ -160,6 +181,7 @@ void ReturnVerifier::SaveState(StateWriter& w) const {
     w.Put(window_[i].realized);
     w.Put(window_[i].weight);
   }
+  for (double v : sums_) w.Put(v);
   w.Put(totals_.count);
   w.Put(totals_.truncated);
   w.Put(totals_.unverifiable);
@@ -228,6 +250,14 @@ bool ReturnVerifier::LoadState(StateReader& r) {
         !r.Get(&window_[i].weight)) {
       return false;
     }
+  }
+  if (r.version() >= 4) {
+    for (double& v : sums_) {
+      if (!r.Get(&v)) return false;
+      if (!std::isfinite(v)) return r.Fail("verifier window sums not finite");
+    }
+  } else {
+    RecomputeSums();
   }
   if (!r.Get(&totals_.count) || !r.Get(&totals_.truncated) || !r.Get(&totals_.unverifiable)) {
     return false;

@@ -137,6 +137,12 @@ class ReturnVerifier {
   std::vector<Verified> window_;  // ring of recent verified predictions
   size_t window_next_ = 0;
   size_t window_count_ = 0;
+  // Sums over the window (error, error^2, realized, realized^2, weight, weight^2), kept
+  // as entries come and go so stats() is O(1) (it runs on the frame path, with every
+  // published answer), and recomputed exactly each time the ring wraps, so rounding
+  // never builds up over more than one window.
+  std::array<double, 6> sums_{};
+  void RecomputeSums();
   VerifiedErrorStats totals_;
   VerificationSink sink_;
 };
