@@ -21,15 +21,15 @@ const char* ScopeName(Scope s) {
   return "?";
 }
 
-bool IsHex64(absl::string_view s) {
+}  // namespace
+
+bool IsSha256Hex(absl::string_view s) {
   if (s.size() != 64) return false;
   for (char c : s) {
     if (!absl::ascii_isxdigit(static_cast<unsigned char>(c))) return false;
   }
   return true;
 }
-
-}  // namespace
 
 std::string Sha256Hex(absl::string_view data) {
   unsigned char digest[SHA256_DIGEST_LENGTH];
@@ -59,7 +59,7 @@ absl::StatusOr<absl::flat_hash_map<std::string, TokenAuth::Entry>> TokenAuth::Pa
       return absl::InvalidArgumentError(absl::StrCat("--token-file ", path, " line ", n, ": ", why));
     };
     if (f.size() < 3 || f.size() > 4) return bad("expected NAME SHA256_HEX SCOPES [POOLS]");
-    if (!IsHex64(f[1])) return bad("the second field must be a 64-digit hex SHA-256 of the token");
+    if (!IsSha256Hex(f[1])) return bad("the second field must be a 64-digit hex SHA-256 of the token");
     Entry e;
     e.name = f[0];
     for (absl::string_view s : absl::StrSplit(f[2], ',')) {
@@ -81,26 +81,14 @@ absl::StatusOr<absl::flat_hash_map<std::string, TokenAuth::Entry>> TokenAuth::Pa
 }
 
 absl::StatusOr<std::unique_ptr<TokenAuth>> TokenAuth::Load(const std::string& path) {
-  auto entries = Parse(path);
-  if (!entries.ok()) return entries.status();
   std::unique_ptr<TokenAuth> auth(new TokenAuth(path));
-  absl::MutexLock lock(&auth->mu_);
-  auth->by_hash_ = *std::move(entries);
+  if (absl::Status s = auth->Reload(); !s.ok()) return s;
   return auth;
 }
 
-absl::Status TokenAuth::Reload() {
-  auto entries = Parse(path_);
-  if (!entries.ok()) return entries.status();
-  absl::MutexLock lock(&mu_);
-  by_hash_ = *std::move(entries);
-  return absl::OkStatus();
-}
+absl::Status TokenAuth::Reload() { return entries_.Reload(); }
 
-size_t TokenAuth::size() const {
-  absl::MutexLock lock(&mu_);
-  return by_hash_.size();
-}
+size_t TokenAuth::size() const { return entries_.size(); }
 
 absl::StatusOr<TokenAuth::Entry> TokenAuth::Find(const grpc::ServerContextBase& context) const {
   const auto& md = context.client_metadata();
@@ -115,10 +103,11 @@ absl::StatusOr<TokenAuth::Entry> TokenAuth::Find(const grpc::ServerContextBase& 
     return absl::UnauthenticatedError("authorization: expected 'Bearer TOKEN'");
   }
   const std::string hash = Sha256Hex(value.substr(kBearer.size()));
-  absl::MutexLock lock(&mu_);
-  auto e = by_hash_.find(hash);
-  if (e == by_hash_.end()) return absl::UnauthenticatedError("unknown token");
-  return e->second;
+  return entries_.Read([&](const auto& by_hash) -> absl::StatusOr<Entry> {
+    auto e = by_hash.find(hash);
+    if (e == by_hash.end()) return absl::UnauthenticatedError("unknown token");
+    return e->second;
+  });
 }
 
 absl::Status TokenAuth::Check(const grpc::ServerContextBase& context, Scope scope,

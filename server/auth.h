@@ -24,6 +24,7 @@
 #include "absl/status/statusor.h"
 #include "absl/synchronization/mutex.h"
 #include "grpcpp/grpcpp.h"
+#include "server/reloadable_entries.h"
 
 namespace bellwether::server {
 
@@ -52,18 +53,18 @@ class TokenAuth {
   size_t size() const;
 
  private:
-  explicit TokenAuth(std::string path) : path_(std::move(path)) {}
+  explicit TokenAuth(std::string path) : entries_(std::move(path), &TokenAuth::Parse) {}
   static absl::StatusOr<absl::flat_hash_map<std::string, Entry>> Parse(const std::string& path);
   // The entry for the call's token, or an error.
   absl::StatusOr<Entry> Find(const grpc::ServerContextBase& context) const;
 
-  const std::string path_;
-  mutable absl::Mutex mu_;
-  absl::flat_hash_map<std::string, Entry> by_hash_ ABSL_GUARDED_BY(mu_);
+  ReloadableEntries<absl::flat_hash_map<std::string, Entry>> entries_;  // by token hash
 };
 
 // Lower-case hex SHA-256 of `data`.
 std::string Sha256Hex(absl::string_view data);
+// Whether `s` is 64 hex digits (a SHA-256 as Sha256Hex or sha256sum print it, any case).
+bool IsSha256Hex(absl::string_view s);
 
 }  // namespace bellwether::server
 

@@ -14,14 +14,6 @@
 namespace bellwether::server {
 namespace {
 
-bool IsHex64(absl::string_view s) {
-  if (s.size() != 64) return false;
-  for (char c : s) {
-    if (!absl::ascii_isxdigit(static_cast<unsigned char>(c))) return false;
-  }
-  return true;
-}
-
 // Compares without an early exit, so the time taken says nothing about where a guess
 // first differs.
 bool ConstantTimeEquals(absl::string_view a, absl::string_view b) {
@@ -54,7 +46,7 @@ absl::StatusOr<absl::flat_hash_map<std::string, std::string>> HttpBasicAuth::Par
     };
     if (f.size() != 2) return bad("expected USER SHA256_HEX");
     if (absl::StrContains(f[0], ':')) return bad("a user name cannot contain ':'");
-    if (!IsHex64(f[1])) {
+    if (!IsSha256Hex(f[1])) {
       return bad("the second field must be the 64 hex digits of the password's SHA-256 "
                  "(printf %s PASSWORD | sha256sum), not the password");
     }
@@ -67,26 +59,14 @@ absl::StatusOr<absl::flat_hash_map<std::string, std::string>> HttpBasicAuth::Par
 }
 
 absl::StatusOr<std::unique_ptr<HttpBasicAuth>> HttpBasicAuth::Load(const std::string& path) {
-  auto parsed = Parse(path);
-  if (!parsed.ok()) return parsed.status();
   std::unique_ptr<HttpBasicAuth> auth(new HttpBasicAuth(path));
-  absl::MutexLock lock(&auth->mu_);
-  auth->hash_by_user_ = *std::move(parsed);
+  if (absl::Status s = auth->Reload(); !s.ok()) return s;
   return auth;
 }
 
-absl::Status HttpBasicAuth::Reload() {
-  auto parsed = Parse(path_);
-  if (!parsed.ok()) return parsed.status();
-  absl::MutexLock lock(&mu_);
-  hash_by_user_ = *std::move(parsed);
-  return absl::OkStatus();
-}
+absl::Status HttpBasicAuth::Reload() { return hash_by_user_.Reload(); }
 
-size_t HttpBasicAuth::size() const {
-  absl::MutexLock lock(&mu_);
-  return hash_by_user_.size();
-}
+size_t HttpBasicAuth::size() const { return hash_by_user_.size(); }
 
 bool HttpBasicAuth::Allows(absl::string_view authorization) const {
   constexpr absl::string_view kBasic = "Basic ";
@@ -104,11 +84,12 @@ bool HttpBasicAuth::Allows(absl::string_view authorization) const {
   if (colon == std::string::npos) return false;
   const std::string user = decoded.substr(0, colon);
   const std::string hash = Sha256Hex(absl::string_view(decoded).substr(colon + 1));
-  absl::MutexLock lock(&mu_);
-  auto it = hash_by_user_.find(user);
-  // An unknown user costs the same comparison as a known one.
-  const std::string& want = it != hash_by_user_.end() ? it->second : hash;
-  return ConstantTimeEquals(want, hash) && it != hash_by_user_.end();
+  return hash_by_user_.Read([&](const auto& hashes) {
+    auto it = hashes.find(user);
+    // An unknown user costs the same comparison as a known one.
+    const std::string& want = it != hashes.end() ? it->second : hash;
+    return ConstantTimeEquals(want, hash) && it != hashes.end();
+  });
 }
 
 }  // namespace bellwether::server

@@ -15,12 +15,11 @@
 #include <memory>
 #include <string>
 
-#include "absl/base/thread_annotations.h"
 #include "absl/container/flat_hash_map.h"
 #include "absl/status/status.h"
 #include "absl/status/statusor.h"
 #include "absl/strings/string_view.h"
-#include "absl/synchronization/mutex.h"
+#include "server/reloadable_entries.h"
 
 namespace bellwether::server {
 
@@ -39,13 +38,12 @@ class HttpBasicAuth {
   size_t size() const;
 
  private:
-  explicit HttpBasicAuth(std::string path) : path_(std::move(path)) {}
+  explicit HttpBasicAuth(std::string path)
+      : hash_by_user_(std::move(path), &HttpBasicAuth::Parse) {}
   static absl::StatusOr<absl::flat_hash_map<std::string, std::string>> Parse(
       const std::string& path);
 
-  const std::string path_;
-  mutable absl::Mutex mu_;
-  absl::flat_hash_map<std::string, std::string> hash_by_user_ ABSL_GUARDED_BY(mu_);
+  ReloadableEntries<absl::flat_hash_map<std::string, std::string>> hash_by_user_;
 };
 
 }  // namespace bellwether::server

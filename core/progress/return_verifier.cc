@@ -92,22 +92,9 @@ void ReturnVerifier::Verify(const Held& h, double realized, double weight, bool 
   ++totals_.count;
   if (truncated) ++totals_.truncated;
   const Verified added{h.prediction - realized, realized, weight};
-  if (window_count_ == window_.size()) {
-    const Verified& gone = window_[window_next_];
-    sums_[0] -= gone.error;
-    sums_[1] -= gone.error * gone.error;
-    sums_[2] -= gone.realized;
-    sums_[3] -= gone.realized * gone.realized;
-    sums_[4] -= gone.weight;
-    sums_[5] -= gone.weight * gone.weight;
-  }
+  if (window_count_ == window_.size()) AddToSums(window_[window_next_], -1.0);
   window_[window_next_] = added;
-  sums_[0] += added.error;
-  sums_[1] += added.error * added.error;
-  sums_[2] += added.realized;
-  sums_[3] += added.realized * added.realized;
-  sums_[4] += added.weight;
-  sums_[5] += added.weight * added.weight;
+  AddToSums(added, 1.0);
   window_next_ = (window_next_ + 1) % window_.size();
   window_count_ = std::min(window_count_ + 1, window_.size());
   if (window_next_ == 0) RecomputeSums();
@@ -138,15 +125,16 @@ VerifiedErrorStats ReturnVerifier::stats() const {
 
 void ReturnVerifier::RecomputeSums() {
   sums_ = {};
-  for (size_t i = 0; i < window_count_; ++i) {
-    const Verified& v = window_[i];
-    sums_[0] += v.error;
-    sums_[1] += v.error * v.error;
-    sums_[2] += v.realized;
-    sums_[3] += v.realized * v.realized;
-    sums_[4] += v.weight;
-    sums_[5] += v.weight * v.weight;
-  }
+  for (size_t i = 0; i < window_count_; ++i) AddToSums(window_[i], 1.0);
+}
+
+void ReturnVerifier::AddToSums(const Verified& v, double sign) {
+  sums_[0] += sign * v.error;
+  sums_[1] += sign * (v.error * v.error);
+  sums_[2] += sign * v.realized;
+  sums_[3] += sign * (v.realized * v.realized);
+  sums_[4] += sign * v.weight;
+  sums_[5] += sign * (v.weight * v.weight);
 }
 
 size_t ReturnVerifier::memory_bytes() const {

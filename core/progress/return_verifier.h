@@ -143,6 +143,7 @@ class ReturnVerifier {
   // never builds up over more than one window.
   std::array<double, 6> sums_{};
   void RecomputeSums();
+  void AddToSums(const Verified& v, double sign);  // sign +1 adds, -1 removes
   VerifiedErrorStats totals_;
   VerificationSink sink_;
 };

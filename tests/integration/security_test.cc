@@ -211,6 +211,18 @@ TEST(Security, NonLoopbackWithoutTokensIsRefused) {
   EXPECT_THAT(b.err, HasSubstr("line 1"));
 }
 
+// `n` half-hourly frames of the grid pool from seq `first`.
+v1::FrameBatch BatchOf(uint64_t first, int n) {
+  v1::FrameBatch b;
+  for (int i = 0; i < n; ++i) {
+    v1::Frame* f = b.add_frames();
+    f->set_seq(first + static_cast<uint64_t>(i));
+    f->set_local_micros(static_cast<int64_t>(first + static_cast<uint64_t>(i)) * 1800 * 1000000);
+    f->add_values(25000 + i);
+  }
+  return b;
+}
+
 // Limits: each violation a clear error (naming the flag) and a refusal, learned state
 // of existing streams unchanged.
 TEST(Security, LimitsAreEnforcedWithClearErrors) {
@@ -240,31 +252,21 @@ TEST(Security, LimitsAreEnforcedWithClearErrors) {
   EXPECT_THAT(big.status().message(), HasSubstr("MiB"));
   EXPECT_THAT(big.status().message(), HasSubstr("--max-pool-mib"));
 
-  auto batch_of = [](uint64_t first, int n) {
-    v1::FrameBatch b;
-    for (int i = 0; i < n; ++i) {
-      v1::Frame* f = b.add_frames();
-      f->set_seq(first + static_cast<uint64_t>(i));
-      f->set_local_micros(static_cast<int64_t>(first + static_cast<uint64_t>(i)) * 1800 * 1000000);
-      f->add_values(25000 + i);
-    }
-    return b;
-  };
   for (const char* stream : {"a", "b"}) {
     auto s = client->OpenIngest("grid", stream, {});
     ASSERT_TRUE(s.ok());
-    ASSERT_TRUE((*s)->Send(batch_of(1, 40)).ok());
+    ASSERT_TRUE((*s)->Send(BatchOf(1, 40)).ok());
   }
   auto before = client->Predict("grid", "a");
   ASSERT_TRUE(before.ok());
   auto third = client->OpenIngest("grid", "c", {});
   ASSERT_TRUE(third.ok());
-  auto refused = (*third)->Send(batch_of(1, 10));
+  auto refused = (*third)->Send(BatchOf(1, 10));
   EXPECT_EQ(refused.status().code(), absl::StatusCode::kResourceExhausted);
   EXPECT_THAT(refused.status().message(), HasSubstr("--max-streams-per-pool 2"));
   auto big_batch = client->OpenIngest("grid", "a", {});
   ASSERT_TRUE(big_batch.ok());
-  auto too_big = (*big_batch)->Send(batch_of(41, 51));
+  auto too_big = (*big_batch)->Send(BatchOf(41, 51));
   EXPECT_EQ(too_big.status().code(), absl::StatusCode::kInvalidArgument);
   EXPECT_THAT(too_big.status().message(), HasSubstr("batch.frames: 51 frames; at most 50"));
   auto after = client->Predict("grid", "a");
@@ -487,21 +489,11 @@ TEST(Security, SpecIngestAndHttpLimits) {
 
   // Frame rate: 10 frames/s with a one-second bucket. The first batch of 30 is admitted
   // (the bucket goes into debt), the next one is refused until the debt is paid.
-  auto batch_of = [](uint64_t first, int n) {
-    v1::FrameBatch b;
-    for (int i = 0; i < n; ++i) {
-      v1::Frame* f = b.add_frames();
-      f->set_seq(first + static_cast<uint64_t>(i));
-      f->set_local_micros(static_cast<int64_t>(first + static_cast<uint64_t>(i)) * 1800 * 1000000);
-      f->add_values(25000 + i);
-    }
-    return b;
-  };
   {
     auto fast = client->OpenIngest("grid", "fast", {});
     ASSERT_TRUE(fast.ok());
-    ASSERT_TRUE((*fast)->Send(batch_of(1, 30)).ok());
-    auto refused = (*fast)->Send(batch_of(31, 30));
+    ASSERT_TRUE((*fast)->Send(BatchOf(1, 30)).ok());
+    auto refused = (*fast)->Send(BatchOf(31, 30));
     EXPECT_EQ(refused.status().code(), absl::StatusCode::kResourceExhausted);
     EXPECT_THAT(refused.status().message(),
                 HasSubstr("faster than 10 frames/s (--max-stream-frames-per-second)"));
@@ -515,12 +507,12 @@ TEST(Security, SpecIngestAndHttpLimits) {
   // so the second call may need a retry.)
   auto one = client->OpenIngest("grid", "one", {});
   ASSERT_TRUE(one.ok());
-  ASSERT_TRUE((*one)->Send(batch_of(1, 1)).ok());
+  ASSERT_TRUE((*one)->Send(BatchOf(1, 1)).ok());
   std::unique_ptr<IngestSession> two;
   for (int i = 0; i < 100 && two == nullptr; ++i) {
     auto opened = client->OpenIngest("grid", "two", {});
     ASSERT_TRUE(opened.ok());
-    if ((*opened)->Send(batch_of(1, 1)).ok()) {
+    if ((*opened)->Send(BatchOf(1, 1)).ok()) {
       two = *std::move(opened);
     } else {
       std::this_thread::sleep_for(std::chrono::milliseconds(20));
@@ -528,7 +520,7 @@ TEST(Security, SpecIngestAndHttpLimits) {
   }
   ASSERT_NE(two, nullptr);
   auto three = client->OpenIngest("grid", "three", {});
-  absl::Status third = three.ok() ? (*three)->Send(batch_of(1, 1)).status() : three.status();
+  absl::Status third = three.ok() ? (*three)->Send(BatchOf(1, 1)).status() : three.status();
   EXPECT_EQ(third.code(), absl::StatusCode::kResourceExhausted);
   EXPECT_THAT(third.message(), HasSubstr("--max-ingest-calls 2"));
 
