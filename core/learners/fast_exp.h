@@ -3,8 +3,8 @@
 // degree-6 polynomial for e^r: the Cephes single-precision expf scheme (S. L. Moshier,
 // Cephes Math Library; coefficients from memory, checked against std::exp in
 // tests/core/fast_exp_test.cc to a few units in the last place). Inputs are clamped to
-// [-87, 88], where the result is a normal float; NaN is not handled (callers pass finite
-// values).
+// [-87, 88], where the result is a normal float; NaN gives NaN (found by fuzzing: a
+// diverged weight's NaN reached the range reduction's float-to-int conversion).
 #ifndef BELLWETHER_CORE_LEARNERS_FAST_EXP_H_
 #define BELLWETHER_CORE_LEARNERS_FAST_EXP_H_
 
@@ -14,8 +14,10 @@
 
 namespace bellwether {
 
-inline float ExpF(float x) {
-  x = std::min(std::max(x, -87.0f), 88.0f);
+inline float ExpF(float x_in) {
+  // NaN compares false both ways, so it takes the lower bound here (converting NaN to an
+  // integer below would be undefined) and is handed back at the end.
+  const float x = x_in > -87.0f ? (x_in < 88.0f ? x_in : 88.0f) : -87.0f;
   const float t = x * 1.44269504088896341f;  // x / ln 2
   const int32_t n = static_cast<int32_t>(t + (t >= 0.0f ? 0.5f : -0.5f));
   const float fn = static_cast<float>(n);
@@ -29,7 +31,7 @@ inline float ExpF(float x) {
   p = p * r + 5.0000001201e-1f;
   const float er = p * (r * r) + r + 1.0f;
   const float scale = std::bit_cast<float>(static_cast<uint32_t>(n + 127) << 23);  // 2^n
-  return er * scale;
+  return x_in == x_in ? er * scale : x_in;
 }
 
 }  // namespace bellwether

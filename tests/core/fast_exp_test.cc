@@ -30,6 +30,9 @@ TEST(ExpF, ClampsOutsideTheNormalRange) {
   EXPECT_TRUE(std::isfinite(ExpF(1000.0f)));
   EXPECT_GT(ExpF(-1000.0f), 0.0f);
   EXPECT_LT(ExpF(-1000.0f), 1e-37f);
+  EXPECT_TRUE(std::isnan(ExpF(std::numeric_limits<float>::quiet_NaN())));
+  EXPECT_GT(ExpF(std::numeric_limits<float>::infinity()), 1e38f);
+  EXPECT_EQ(ExpF(-std::numeric_limits<float>::infinity()), ExpF(-1000.0f));
 }
 
 }  // namespace
