@@ -134,7 +134,10 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
     s.behavior_counts = old_state->behavior_counts;
     s.feature_gap_frames = old_state->feature_gap_frames;
     s.frames_applied = old_state->frames_applied;
-    if (!pool->spec_.pooled) copy_params(old_state->own_params, s.own_params);
+    if (!pool->spec_.pooled) {
+      for (const BlockTraceState& b : old_state->block_states) b.FoldLazy();
+      copy_params(old_state->own_params, s.own_params);
+    }
     for (size_t n = 0; n < from.size(); ++n) {
       if (from[n] < 0) continue;
       const size_t o = static_cast<size_t>(from[n]);
@@ -441,6 +444,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     step.x = &s.prev_x;
     step.x_next = &next_x_;
     step.gamma_next = gamma_next;
+    step.own_params = !spec_.pooled;
     bool usable = continuation_known;
     double pi_taken = 1.0;
     if (block.action_valued) {
@@ -554,7 +558,9 @@ const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const 
   if (b >= spec_.blocks.size()) return nullptr;
   if (spec_.pooled) return &pooled_params_[b];
   auto it = streams_.find(stream);
-  return it == streams_.end() ? nullptr : &it->second->own_params[b];
+  if (it == streams_.end()) return nullptr;
+  it->second->block_states[b].FoldLazy();  // the weights with every update applied
+  return &it->second->own_params[b];
 }
 
 void Pool::SetVerificationSink(VerificationSink sink) {

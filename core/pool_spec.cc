@@ -881,6 +881,12 @@ StateEstimate EstimateState(const CompiledPoolSpec& spec) {
     if (b.rupee) arrays += 2;
     blocks += cells * arrays * sizeof(float);
     e.per_stream_bytes += rows * sizeof(float);  // the block's dense trace
+    // The lazy kernel of a per-stream FIXED TD block (BlockTraceState): 32 bytes of row
+    // and heap state per row, two epochs of 129 running-sum vectors.
+    if (!spec.pooled && b.learner == LearnerKind::kTd && b.step_rule == StepRuleKind::kFixed &&
+        !b.action_valued && !b.rupee && b.questions.size() >= 32) {
+      e.per_stream_bytes += rows * 32 + 2 * 129 * b.questions.size() * sizeof(double);
+    }
   }
   for (const CompiledQuestion& q : spec.questions) {
     // Verifier rings: held predictions up to the horizon and the verified window.
@@ -890,7 +896,7 @@ StateEstimate EstimateState(const CompiledPoolSpec& spec) {
       d *= q.gamma;
       ++horizon;
     }
-    e.per_stream_bytes += (horizon + 1) * 48 + spec.verify_window * 24;
+    e.per_stream_bytes += (horizon + 1) * 64 + spec.verify_window * 24;
   }
   if (spec.pooled) {
     e.shared_bytes += blocks;

@@ -50,6 +50,7 @@
 
 #include "absl/types/span.h"
 #include "core/features/sparse_features.h"
+#include "core/learners/lazy_block_td.h"
 #include "core/learners/sparse_trace.h"
 #include "core/pool_spec.h"
 #include "core/progress/learning_progress.h"
@@ -135,16 +136,29 @@ class BlockParams {
 };
 
 // Per-stream trace state of one block.
+//
+// A block of 32 or more questions that learns by TD(lambda) with FIXED steps, state
+// values, no RUPEE and weights of its own (per-stream learning) runs on a LazyBlockTd: its trace lives in `lazy`, and
+// the updates of the block's weight rows are applied when each row is next read or its
+// trace entry is pruned (core/learners/lazy_block_td.h). `trace` is the canonical form:
+// the kernel is made from it at the next frame, and SaveState, Reset and FoldLazy() fold
+// the kernel back into it (every pending update applied to the weights, the trace
+// entries rounded to float), so a saved and a restored pool continue alike.
 struct BlockTraceState {
   explicit BlockTraceState(uint32_t rows) : trace(rows) {}
-  SparseTrace trace;
+  mutable SparseTrace trace;
   double follow_on = 0;  // emphatic F
   double rho_prev = 1;   // emphatic: rho_{t-1}
   double gamma_t = 0;    // continuation into the current state
   std::vector<double> v_old;  // true online: per question
+  mutable std::unique_ptr<LazyBlockTd> lazy;
   void SaveState(StateWriter& w) const;
   bool LoadState(StateReader& r);
+  // Applies what the lazy kernel holds to the weights and moves its trace into `trace`
+  // (a change of representation, not of what was learned). No-op without a kernel.
+  void FoldLazy() const;
   void Reset() {
+    FoldLazy();
     trace.Clear();
     follow_on = 0;
     rho_prev = 1;
@@ -163,6 +177,9 @@ struct BlockStep {
   absl::Span<const double> pi_now;         // pi(.|S_t), action values with a fixed target
   absl::Span<const double> pi_next;        // pi(.|S_{t+1}), same
   absl::Span<const double> cumulants;      // per question of the block; NaN = skip
+  // The weights belong to this stream alone (per-stream learning), so the block may run
+  // on a lazy kernel (see BlockTraceState).
+  bool own_params = false;
 };
 
 // Applies block updates. Holds scratch buffers sized for the widest block, so a step
@@ -189,6 +206,11 @@ class BlockLearner {
 
  private:
   void PredictRows(const BlockParams& p, const SparseFeatures& x, int action, float* out) const;
+  // Whether this block and step run on the lazy kernel.
+  static bool UsesLazyKernel(const BlockSpec& spec, const BlockStep& step);
+  // The stream's kernel over `p`'s weights, made from `state.trace` if there is none.
+  LazyBlockTd& LazyKernel(BlockParams& p, BlockTraceState& state);
+  static SparseRows Rows(const SparseFeatures& x) { return {x.index, x.value}; }
   void ApplyStepRule(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
                      const BlockStep& step, double norm_sq, const SparseTrace& trace,
                      BlockParams& p);
@@ -206,6 +228,9 @@ class BlockLearner {
   std::vector<float> v_, v_next_, delta_, scratch_;
   std::vector<double> dscratch_, pi_buf_, q_buf_, wsq_;
   std::vector<float> wsq_f_;
+  std::vector<float> x_scaled_;  // rho x for the lazy kernel
+  std::vector<uint32_t> trace_rows_;
+  std::vector<float> trace_values_;
   std::vector<float> x_dense_, xn_dense_;  // feature values by row for the current step
 };
 

@@ -44,6 +44,15 @@ void SparseTrace::Clear() {
   active_.clear();
 }
 
+void SparseTrace::Set(absl::Span<const uint32_t> rows, absl::Span<const float> values) {
+  Clear();
+  for (size_t i = 0; i < rows.size(); ++i) {
+    if (values[i] == 0.0f) continue;
+    e_[rows[i]] = values[i];
+    active_.push_back(rows[i]);
+  }
+}
+
 void SparseTrace::SaveState(StateWriter& w) const {
   w.PutVector(active_);
   std::vector<float> values;

@@ -6,6 +6,7 @@
 #include <cstdint>
 #include <vector>
 
+#include "absl/types/span.h"
 #include "core/features/sparse_features.h"
 
 namespace bellwether {
@@ -28,6 +29,9 @@ class SparseTrace {
                   uint32_t offset = 0);
   // e <- 0.
   void Clear();
+  // e <- 0, then e[rows[i]] = values[i] (zeros skipped), in that order. Rows must be in
+  // range and distinct.
+  void Set(absl::Span<const uint32_t> rows, absl::Span<const float> values);
 
   // Non-zero entries: feature indices and their trace values, same order.
   const std::vector<uint32_t>& active() const { return active_; }

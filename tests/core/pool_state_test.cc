@@ -8,6 +8,7 @@
 
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
+#include "absl/strings/str_cat.h"
 #include "core/pool.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
@@ -20,7 +21,25 @@ struct Case {
   std::string spec;  // path
   std::string csv;   // path
   bool pooled;
+  // Every question on FIXED steps without RUPEE: per-stream pools then learn on the lazy
+  // kernel (core/learners/lazy_block_td.h).
+  bool fixed_no_rupee = false;
 };
+
+// Blocks of 32 or more such questions run on the kernel: each question is repeated (with
+// its own name) until the pool has at least 40, its copies in the same block.
+void MakeFixedNoRupee(v1::PoolSpec* spec) {
+  for (v1::QuestionSpec& q : *spec->mutable_questions()) q.set_step_rule(v1::FIXED);
+  spec->mutable_progress()->set_disable_rupee(true);
+  const int n = spec->questions_size();
+  for (int copy = 1; spec->questions_size() < 40 * n; ++copy) {
+    for (int i = 0; i < n; ++i) {
+      v1::QuestionSpec* q = spec->add_questions();
+      *q = spec->questions(i);
+      q->set_name(absl::StrCat(q->name(), "_copy", copy));
+    }
+  }
+}
 
 std::string Repo(const std::string& rel) { return std::string(BW_TEST_DATA_DIR) + "/../../" + rel; }
 
@@ -34,6 +53,10 @@ std::vector<Case> Cases() {
        Repo("deploy/examples/campus-library.csv"), false},
       {"robots", Repo("deploy/examples/recipes/robot-charging.json"),
        Repo("deploy/examples/robot-fleet.csv"), false},
+      {"building_lazy", Repo("deploy/examples/recipes/building-energy.json"),
+       Repo("deploy/examples/campus-library.csv"), false, true},
+      {"grid_lazy", Repo("deploy/examples/grid.json"),
+       std::string(BW_SHARED_DATA_DIR) + "/halfhourly-demand-2000.csv", false, true},
   };
 }
 
@@ -76,6 +99,7 @@ TEST_P(PoolStateTest, RestoredPoolContinuesBitForBit) {
   auto spec = ReadPoolSpecFile(c.spec);
   ASSERT_TRUE(spec.ok()) << spec.status();
   if (c.pooled) spec->set_learning(v1::PoolSpec::POOLED);
+  if (c.fixed_no_rupee) MakeFixedNoRupee(&*spec);
   auto a = Pool::Create(*spec);
   ASSERT_TRUE(a.ok()) << a.status();
   const Frames f = ReadFrames(**a, c.csv);
@@ -118,6 +142,60 @@ TEST_P(PoolStateTest, RestoredPoolContinuesBitForBit) {
 
 INSTANTIATE_TEST_SUITE_P(Recipes, PoolStateTest, ::testing::ValuesIn(Cases()),
                          [](const ::testing::TestParamInfo<Case>& p) { return p.param.name; });
+
+// The lazy kernel against the eager loop inside the engine: the same FIXED-step pool
+// learned per stream (lazy: this stream's weights alone) and pooled from one stream (the
+// eager loop: pooled weights may be shared), on the same frames, answer alike up to float
+// rounding, and so do their weights. The eager loop is the textbook update (Sutton &
+// Barto 2nd ed., eq. 12.5-12.7, accumulating trace); the kernel's exactness is proved in
+// lazy_block_td_test against the same.
+TEST(LazyKernelInTheEngine, AnswersAsTheEagerLoopDoes) {
+  for (const auto& [spec_path, csv] :
+       {std::pair{Repo("deploy/examples/recipes/building-energy.json"),
+                  Repo("deploy/examples/campus-library.csv")},
+        std::pair{Repo("deploy/examples/grid.json"),
+                  std::string(BW_SHARED_DATA_DIR) + "/halfhourly-demand-2000.csv"}}) {
+    auto spec = ReadPoolSpecFile(spec_path);
+    ASSERT_TRUE(spec.ok()) << spec.status();
+    MakeFixedNoRupee(&*spec);
+    spec->set_learning(v1::PoolSpec::PER_STREAM);
+    auto lazy = Pool::Create(*spec);
+    spec->set_learning(v1::PoolSpec::POOLED);
+    auto eager = Pool::Create(*spec);
+    ASSERT_TRUE(lazy.ok() && eager.ok());
+    const Frames f = ReadFrames(**lazy, csv);
+    std::vector<double> buffer;
+    FrameInput input;
+    double worst = 0;
+    for (size_t i = 0; i < f.frames.size(); ++i) {
+      ASSERT_TRUE(FrameFromProto(f.frames[i], *f.columns, &buffer, &input).ok());
+      ASSERT_TRUE((*lazy)->Apply("s", input).ok());
+      ASSERT_TRUE((*eager)->Apply("s", input).ok());
+      const auto a = (*lazy)->predictions("s"), b = (*eager)->predictions("s");
+      ASSERT_EQ(a.size(), b.size());
+      for (size_t q = 0; q < a.size(); ++q) {
+        worst = std::max(worst, std::fabs(a[q] - b[q]) / std::max(1.0, std::fabs(b[q])));
+      }
+    }
+    EXPECT_LT(worst, 1e-4) << spec_path;
+    // The weights read through block_params include every pending update.
+    for (size_t blk = 0; blk < (*lazy)->spec().blocks.size(); ++blk) {
+      const BlockParams* pa = (*lazy)->block_params("s", blk);
+      const BlockParams* pb = (*eager)->block_params("s", blk);
+      ASSERT_TRUE(pa != nullptr && pb != nullptr);
+      double diff = 0, norm = 0;
+      for (uint32_t r = 0; r < pa->rows(); ++r) {
+        for (uint32_t q = 0; q < pa->cols(); ++q) {
+          const double d = static_cast<double>(pa->row(r)[q]) - static_cast<double>(pb->row(r)[q]);
+          diff += d * d;
+          norm += static_cast<double>(pb->row(r)[q]) * static_cast<double>(pb->row(r)[q]);
+        }
+      }
+      EXPECT_LT(std::sqrt(diff), 1e-4 * std::max(1.0, std::sqrt(norm))) << spec_path << " block " << blk;
+      EXPECT_GT(norm, 0.0) << "nothing learned";
+    }
+  }
+}
 
 // Every truncation and a sample of single-bit flips of a real payload: the loader never
 // crashes or reads out of bounds; it fails with DATA_LOSS naming the offset, or (a flip in
