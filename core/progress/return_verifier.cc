@@ -189,21 +189,15 @@ bool ReturnVerifier::LoadState(StateReader& r) {
   held_count_ = count;
   if (r.version() >= 3) {
     if (!r.Get(&acc_) || !r.Get(&disc_) || !r.Get(&wt_) || !r.Get(&step_)) return false;
-    // The discount and weight products stay in (0, 1] and (0, inf) (rebased, reset when
-    // nothing is held); the sum of cumulants may be anything a stream sent, infinities
-    // included (found by fuzzing: refusing them made a saved pool unloadable).
-    if (!(disc_ > 0 && disc_ <= 1) || !(wt_ > 0) || !std::isfinite(wt_)) {
-      return r.Fail("verifier running sums out of range");
-    }
+    // No range checks on these values: none of them indexes memory, and the loader must
+    // take whatever the verifier itself can hold, non-finite values included (hostile
+    // frames make sums infinite and importance weights overflow; found by fuzzing, where
+    // refusing them made a saved pool unloadable).
     for (size_t i = 0; i < count; ++i) {
       Held& h = held_[(start + i) % cap];
       if (!r.Get(&h.prediction) || !r.Get(&h.base) || !r.Get(&h.acc0) || !r.Get(&h.disc0) ||
           !r.Get(&h.wt0) || !r.Get(&h.inv_scale) || !r.Get(&h.seq) || !r.Get(&h.held_at)) {
         return false;
-      }
-      if (!(h.disc0 > 0) || !(h.wt0 > 0) || !std::isfinite(h.inv_scale) ||
-          h.held_at > step_) {
-        return r.Fail("held prediction out of range");
       }
     }
   } else {
