@@ -122,11 +122,13 @@ bool PoolWorker::AdmitFramesLocked(const std::string& stream, size_t frames) {
   };
   // A flood of stream ids must not grow this map without bound: past the stream limit,
   // buckets that are full again (idle for a second) are forgotten, which loses nothing.
-  if (rate_.size() > options_.max_streams + 1024) {
+  const size_t floor = options_.max_streams + 1024;
+  if (rate_.size() > std::max(rate_sweep_at_, floor)) {
     absl::erase_if(rate_, [&](auto& entry) {
       refill(entry.second);
       return entry.second.tokens >= rate;
     });
+    rate_sweep_at_ = 2 * rate_.size();
   }
   auto [it, inserted] = rate_.try_emplace(stream);
   RateBucket& b = it->second;

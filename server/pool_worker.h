@@ -201,6 +201,9 @@ class PoolWorker {
     std::chrono::steady_clock::time_point last;
   };
   absl::flat_hash_map<std::string, RateBucket> rate_ ABSL_GUARDED_BY(queue_mu_);
+  // Size past which idle buckets are swept; doubles with what a sweep keeps, so a map
+  // of many live streams is not scanned on every batch.
+  size_t rate_sweep_at_ ABSL_GUARDED_BY(queue_mu_) = 0;
   // Whether `frames` more frames of `stream` are within the rate; takes them if so.
   bool AdmitFramesLocked(const std::string& stream, size_t frames)
       ABSL_EXCLUSIVE_LOCKS_REQUIRED(queue_mu_);
