@@ -1,5 +1,7 @@
 #include "core/pool_spec.h"
 
+#include "core/learners/block_learner.h"  // DirtyListCapacity, for the state estimate
+
 #include <algorithm>
 #include <cmath>
 #include <functional>
@@ -880,6 +882,8 @@ StateEstimate EstimateState(const CompiledPoolSpec& spec) {
     if (b.step_rule == StepRuleKind::kSettling) arrays += 1;
     if (b.rupee) arrays += 2;
     blocks += cells * arrays * sizeof(float);
+    // The guard's dirty-row bookkeeping: a bit per row and a list of written rows.
+    blocks += (rows + 63) / 64 * 8 + uint64_t{DirtyListCapacity(static_cast<uint32_t>(rows))} * 4;
     e.per_stream_bytes += rows * sizeof(float);  // the block's dense trace
     // The lazy kernel of a per-stream FIXED TD block (BlockTraceState): 32 bytes of row
     // and heap state per row, two epochs of 129 running-sum vectors.

@@ -70,12 +70,7 @@ void PoolWorker::InstallSink() {
     // Only streams that keep history, and only visible questions.
     if (current_stream_ == nullptr || stream != *current_stream_) return;
     if (question >= pool_->spec().num_visible_questions) return;
-    PendingPoint p{question, {}};
-    p.point.set_seq(seq);
-    p.point.set_predicted(prediction);
-    p.point.set_realized(realized);
-    p.point.set_truncated(truncated);
-    pending_points_.push_back(std::move(p));
+    pending_points_.push_back({question, {seq, prediction, realized, truncated}});
   });
 }
 

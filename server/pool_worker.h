@@ -221,7 +221,7 @@ class PoolWorker {
   // Verified points gathered during a batch, moved into `history_` after it.
   struct PendingPoint {
     size_t question;
-    v1::VerifiedPoint point;
+    StreamHistory::Verified point;
   };
   std::vector<PendingPoint> pending_points_;
   const std::string* current_stream_ = nullptr;

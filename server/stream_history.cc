@@ -24,9 +24,9 @@ StreamHistory::StreamHistory(size_t questions, size_t points)
   for (auto& r : samples_) r.items.resize(points);
 }
 
-void StreamHistory::AddVerified(size_t q, const v1::VerifiedPoint& point) {
+void StreamHistory::AddVerified(size_t q, const Verified& point) {
   if (q >= verified_.size()) return;
-  verified_[q].Push({point.seq(), point.predicted(), point.realized(), point.truncated()});
+  verified_[q].Push(point);
 }
 
 void StreamHistory::MaybeSample(const v1::StreamPredictions& current) {

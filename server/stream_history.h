@@ -22,8 +22,16 @@ class StreamHistory {
 
   StreamHistory(size_t questions, size_t points);
 
-  // Records a verified prediction of question `q`.
-  void AddVerified(size_t q, const v1::VerifiedPoint& point);
+  // One verified prediction: made at `seq`, and the return realized for it.
+  struct Verified {
+    uint64_t seq;
+    double predicted, realized;
+    bool truncated;
+  };
+
+  // Records a verified prediction of question `q` (a plain struct: the writer thread
+  // gathers one per question per frame, so no message is built until someone asks).
+  void AddVerified(size_t q, const Verified& point);
   // Takes a progress sample of every question from `current` if `kSampleEvery` frames
   // passed since the last one.
   void MaybeSample(const v1::StreamPredictions& current);
@@ -50,11 +58,6 @@ class StreamHistory {
       const size_t start = full ? next : 0;
       for (size_t i = 0; i < n; ++i) f(items[(start + i) % items.size()]);
     }
-  };
-  struct Verified {
-    uint64_t seq;
-    double predicted, realized;
-    bool truncated;
   };
   struct Sample {
     uint64_t seq;

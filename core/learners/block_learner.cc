@@ -69,6 +69,9 @@ BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuesti
   const size_t n = static_cast<size_t>(rows_) * cols_;
   w_.assign(n, 0.0f);
   good_w_.assign(n, 0.0f);
+  dirty_bits_.assign((static_cast<size_t>(rows_) + 63) / 64, uint64_t{0});
+  dirty_rows_.reserve(DirtyListCapacity(rows_));
+  all_dirty_ = false;  // zero weights, zero restore point
   if (spec.learner == LearnerKind::kTdc) aux_.assign(n, 0.0f);
   if (spec.rupee) {
     rupee_h_.assign(n, 0.0f);
@@ -97,7 +100,40 @@ BlockParams::BlockParams(const BlockSpec& spec, const std::vector<CompiledQuesti
   }
 }
 
+void BlockParams::MarkSound() {
+  good_w_ = w_;
+  // A live trace may still hold rows that were never marked: the next snapshot copies all.
+  MarkAllDirty();
+}
+
+bool BlockParams::TrySnapshot() {
+  if (all_dirty_) {
+    bool finite = true;
+    for (float w : w_) finite &= std::isfinite(w);
+    if (!finite) return false;
+    std::copy(w_.begin(), w_.end(), good_w_.begin());
+    std::fill(dirty_bits_.begin(), dirty_bits_.end(), uint64_t{0});
+  } else {
+    bool finite = true;
+    for (uint32_t r : dirty_rows_) {
+      const float* w = row(r);
+      for (uint32_t q = 0; q < cols_; ++q) finite &= std::isfinite(w[q]);
+    }
+    if (!finite) return false;
+    for (uint32_t r : dirty_rows_) {
+      const size_t at = static_cast<size_t>(r) * cols_;
+      std::copy(w_.begin() + at, w_.begin() + at + cols_, good_w_.begin() + at);
+      dirty_bits_[r >> 6] = 0;  // the whole word: every row in it is clean now
+    }
+  }
+  dirty_rows_.clear();
+  all_dirty_ = false;
+  ++snapshots_;
+  return true;
+}
+
 void BlockParams::CopyColumnFrom(const BlockParams& other, uint32_t from_col, uint32_t to_col) {
+  MarkAllDirty();
   auto copy = [&](const std::vector<float>& src, std::vector<float>& dst) {
     if (src.empty() || dst.empty()) return;
     for (uint32_t r = 0; r < rows_; ++r) {
@@ -571,7 +607,17 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
   } else {
     Answer(spec, xn, pi_answer, p, answers, greedy_action);
   }
-  if (Guard(spec, questions, p, state, answers)) {
+  // Rows this frame wrote that the guard's snapshot must copy: x_t's (they enter the trace)
+  // and x_{t+1}'s (TDC writes them). Rows already in the trace were marked when the last
+  // snapshot was taken. Weights shared by streams or indexed by action: all rows.
+  const bool track_rows = step.own_params && !spec.action_valued;
+  if (track_rows) {
+    for (uint32_t r : x.index) p.MarkDirty(r);
+    for (uint32_t r : xn.index) p.MarkDirty(r);
+  } else {
+    p.MarkAllDirty();
+  }
+  if (Guard(spec, questions, p, state, answers, track_rows)) {
     Answer(spec, xn, pi_answer, p, answers, greedy_action);
   }
 }
@@ -762,7 +808,8 @@ void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, dou
 }
 
 bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
-                         BlockParams& p, BlockTraceState& state, absl::Span<const double> answers) {
+                         BlockParams& p, BlockTraceState& state, absl::Span<const double> answers,
+                         bool track_rows) {
   const uint32_t nq = p.cols();
   const size_t rows = p.rows();
   bool reset = false;
@@ -815,9 +862,14 @@ bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuesti
   if (++p.updates_since_snapshot_ >= kSnapshotEvery) {
     p.updates_since_snapshot_ = 0;
     if (state.lazy != nullptr) state.lazy->Flush();
-    bool finite = true;
-    for (float w : p.w_) finite &= std::isfinite(w);
-    if (finite && !p.implausible_since_snapshot_) p.good_w_ = p.w_;
+    if (!p.implausible_since_snapshot_ && p.TrySnapshot() && track_rows) {
+      // The trace's rows keep receiving updates after the snapshot.
+      if (state.lazy != nullptr) {
+        for (size_t i = 0; i < state.lazy->trace_size(); ++i) p.MarkDirty(state.lazy->trace_row(i));
+      } else {
+        for (uint32_t r : state.trace.active()) p.MarkDirty(r);
+      }
+    }
     p.implausible_since_snapshot_ = false;
   }
   return false;
@@ -888,6 +940,7 @@ bool BlockParams::LoadState(StateReader& r) {
     return false;
   }
   implausible_since_snapshot_ = implausible != 0;
+  MarkAllDirty();  // the loaded weights and restore point may differ anywhere
   for (QuestionCounters& c : counters_) {
     if (!LoadCounters(r, &c)) return false;
   }

@@ -45,6 +45,7 @@
 #ifndef BELLWETHER_CORE_LEARNERS_BLOCK_LEARNER_H_
 #define BELLWETHER_CORE_LEARNERS_BLOCK_LEARNER_H_
 
+#include <algorithm>
 #include <cstdint>
 #include <vector>
 
@@ -59,6 +60,12 @@ namespace bellwether {
 
 class StateWriter;
 class StateReader;
+
+// How many written rows the divergence guard lists before it copies whole snapshots
+// instead: every row of a small table, an eighth of a large one.
+inline uint32_t DirtyListCapacity(uint32_t rows) {
+  return std::min(rows, std::max<uint32_t>(rows / 8, 4096));
+}
 
 // Per-question counters of a block's learning (part of its learned state).
 struct QuestionCounters {
@@ -99,7 +106,31 @@ class BlockParams {
 
   // Declares the current weights sound: the divergence guard's restore point. Call after
   // setting weights from outside (a restored checkpoint, a test's initial weights).
-  void MarkSound() { good_w_ = w_; }
+  void MarkSound();
+
+  // Divergence guard bookkeeping. The guard's snapshot copies only the rows written since
+  // the last one; whoever writes a weight row outside BlockLearner::Learn must call
+  // MarkAllDirty() (the next snapshot then copies every row).
+  void MarkDirty(uint32_t r) {
+    if (all_dirty_) return;
+    uint64_t& word = dirty_bits_[r >> 6];
+    const uint64_t bit = uint64_t{1} << (r & 63);
+    if ((word & bit) != 0) return;
+    word |= bit;
+    if (dirty_rows_.size() == dirty_rows_.capacity()) {
+      all_dirty_ = true;  // past DirtyListCapacity a whole copy is about as cheap
+      return;
+    }
+    dirty_rows_.push_back(r);
+  }
+  void MarkAllDirty() { all_dirty_ = true; }
+  // The restore point (rows x cols like the weights) and how many snapshots this object
+  // took since it was made or loaded.
+  absl::Span<const float> restore_point() const { return good_w_; }
+  uint64_t snapshots() const { return snapshots_; }
+  // If every weight is finite, copies the weights into the restore point (the rows
+  // written since the last snapshot, or every row) and returns true; else changes nothing.
+  bool TrySnapshot();
 
   // Centering: the running mean of column `q`'s cumulant and how many it has seen.
   double cumulant_mean(uint32_t q) const { return cumulant_mean_[q]; }
@@ -122,6 +153,12 @@ class BlockParams {
   std::vector<float> ss_h_;   // AUTOSTEP/TIDBD: h_i
   std::vector<float> ss_v_;   // AUTOSTEP: v_i
   std::vector<float> good_w_;  // divergence guard: the last weights known to be sound
+  // Rows that may differ from good_w_: a bit per row and their list (up to
+  // DirtyListCapacity), or all of them. Not saved: a loaded block starts with every row dirty.
+  std::vector<uint64_t> dirty_bits_;
+  std::vector<uint32_t> dirty_rows_;
+  bool all_dirty_ = true;
+  uint64_t snapshots_ = 0;
   // RUPEE: h (secondary weights) and u, with avg(delta e) = rupee_scale_ * u stored
   // lazily scaled so its decay costs nothing per step; rupee_dot_[q] = h_q . u_q.
   std::vector<float> rupee_h_, rupee_u_;
@@ -221,8 +258,11 @@ class BlockLearner {
   // within the plausible range. Returns whether any question was reset.
   void UpdateRupee(const BlockSpec& spec, const BlockStep& step, double norm_sq,
                    const SparseTrace& trace, BlockParams& p);
+  // `track_rows`: the snapshot copies only the rows marked dirty (see BlockParams), and
+  // the trace's rows are marked after it.
   bool Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
-             BlockParams& p, BlockTraceState& state, absl::Span<const double> answers);
+             BlockParams& p, BlockTraceState& state, absl::Span<const double> answers,
+             bool track_rows);
 
   uint32_t num_actions_;
   std::vector<float> v_, v_next_, delta_, scratch_;

@@ -182,6 +182,8 @@ class LazyBlockTd {
   double TraceNormSq() const;
   // Writes the trace's entries (any order) into rows / values, each of size trace_size().
   void TraceEntries(absl::Span<uint32_t> rows, absl::Span<float> values) const;
+  // The row of the trace's i-th entry (any order), i < trace_size().
+  uint32_t trace_row(size_t i) const { return heap_[i].row; }
   // Flush(), then replaces the trace (for checkpoints). Zero values are skipped.
   absl::Status SetTrace(absl::Span<const uint32_t> rows, absl::Span<const float> values);
 

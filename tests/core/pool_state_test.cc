@@ -149,6 +149,58 @@ INSTANTIATE_TEST_SUITE_P(Recipes, PoolStateTest, ::testing::ValuesIn(Cases()),
 // rounding, and so do their weights. The eager loop is the textbook update (Sutton &
 // Barto 2nd ed., eq. 12.5-12.7, accumulating trace); the kernel's exactness is proved in
 // lazy_block_td_test against the same.
+// The divergence guard's snapshot copies only the rows written since the previous one
+// (BlockParams::MarkDirty). Whenever a snapshot is taken, the restore point must equal the
+// weights of that moment in every row: a row written but not marked would keep its old
+// value. Checked on every learner family of the recipes, per-stream (rows tracked) and
+// pooled (whole copies), on the eager loop and on the lazy kernel.
+TEST_P(PoolStateTest, GuardSnapshotEqualsTheWeightsWhenTaken) {
+  const Case& c = GetParam();
+  auto spec = ReadPoolSpecFile(c.spec);
+  ASSERT_TRUE(spec.ok()) << spec.status();
+  if (c.fixed_no_rupee) MakeFixedNoRupee(&*spec);
+  spec->set_learning(c.pooled ? v1::PoolSpec::POOLED : v1::PoolSpec::PER_STREAM);
+  auto pool = Pool::Create(*spec);
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  const Frames f = ReadFrames(**pool, c.csv);
+  const size_t n = std::min<size_t>(f.frames.size(), 4500);
+  const size_t blocks = (*pool)->spec().blocks.size();
+  std::vector<uint64_t> seen(2 * blocks, 0);
+  std::vector<double> buffer;
+  FrameInput input;
+  size_t compared = 0, changed = 0;
+  std::vector<float> previous;
+  for (size_t i = 0; i < n; ++i) {
+    ASSERT_TRUE(FrameFromProto(f.frames[i], *f.columns, &buffer, &input).ok());
+    const int which = static_cast<int>(i % 2);  // two streams, interleaved
+    const std::string stream = which == 0 ? "s1" : "s2";
+    ASSERT_TRUE((*pool)->Apply(stream, input).ok());
+    for (size_t b = 0; b < blocks; ++b) {
+      const BlockParams* p = (*pool)->block_params(stream, b);
+      ASSERT_NE(p, nullptr);
+      uint64_t& last = seen[(c.pooled ? 0 : which) * blocks + b];
+      if (p->snapshots() == last) continue;
+      last = p->snapshots();
+      const absl::Span<const float> good = p->restore_point();
+      size_t differ = 0;
+      for (uint32_t r = 0; r < p->rows(); ++r) {
+        differ += std::memcmp(p->row(r), &good[static_cast<size_t>(r) * p->cols()],
+                              p->cols() * sizeof(float)) != 0;
+      }
+      EXPECT_EQ(differ, 0u) << c.name << " block " << b << " frame " << i << ": rows whose "
+                            << "restore point misses a write";
+      ++compared;
+      if (b == 0 && (c.pooled || which == 0)) {
+        if (previous.empty()) previous.assign(good.size(), 0.0f);  // the weights start at 0
+        changed += std::memcmp(previous.data(), good.data(), good.size() * sizeof(float)) != 0;
+        previous.assign(good.begin(), good.end());
+      }
+    }
+  }
+  EXPECT_GE(compared, 2u) << c.name << ": too few snapshots to check";
+  EXPECT_GE(changed, 1u) << c.name << ": the restore point never moved";
+}
+
 TEST(LazyKernelInTheEngine, AnswersAsTheEagerLoopDoes) {
   for (const auto& [spec_path, csv] :
        {std::pair{Repo("deploy/examples/recipes/building-energy.json"),

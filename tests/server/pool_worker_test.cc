@@ -138,11 +138,7 @@ TEST(RejectionReason, NamesTheFieldAtFault) {
 TEST(StreamHistory, RingsKeepTheNewestPointsOldestFirst) {
   StreamHistory h(/*questions=*/1, /*points=*/3);
   for (uint64_t seq = 1; seq <= 5; ++seq) {
-    v1::VerifiedPoint p;
-    p.set_seq(seq);
-    p.set_predicted(static_cast<double>(seq) * 10);
-    p.set_realized(static_cast<double>(seq) * 11);
-    h.AddVerified(0, p);
+    h.AddVerified(0, {seq, static_cast<double>(seq) * 10, static_cast<double>(seq) * 11, false});
   }
   v1::StreamPredictions current;
   v1::Prediction* pred = current.add_predictions();
