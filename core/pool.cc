@@ -595,25 +595,32 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
         absl::StrCat("pool ", name(), ": stream '", stream, "' has sent no frames"));
   }
   const StreamState& s = *it->second;
-  out->Clear();
+  // Every field is set in place: a message reused across calls (the writer's history
+  // samples) keeps its allocations, where Clear() would free each sub-message.
   out->set_pool(name());
-  out->set_stream(std::string(stream));
+  out->set_stream(stream.data(), stream.size());
   out->set_as_of_seq(s.last_seq);
   double norm_sq = 0;
   for (float v : s.prev_x.value) norm_sq += static_cast<double>(v) * static_cast<double>(v);
   std::vector<uint32_t> rows;
+  auto* predictions = out->mutable_predictions();
+  const int visible = static_cast<int>(spec_.num_visible_questions);
+  while (predictions->size() > visible) predictions->RemoveLast();
   for (size_t qi = 0; qi < spec_.num_visible_questions; ++qi) {
     const CompiledQuestion& q = spec_.questions[qi];
-    v1::Prediction* p = out->add_predictions();
+    const int i = static_cast<int>(qi);
+    v1::Prediction* p = i < predictions->size() ? predictions->Mutable(i) : predictions->Add();
     p->set_question(q.name);
     p->set_value(s.answers[qi]);
     p->set_unit(q.unit);
     p->set_as_of_seq(s.last_seq);
+    p->clear_greedy_action();
     if ((q.control || !q.gpi_tables.empty()) && s.greedy_actions[qi] >= 0) {
       p->set_greedy_action(spec_.actions[static_cast<size_t>(s.greedy_actions[qi])]);
     }
     const VerifiedErrorStats st = s.verifiers[qi].stats();
     v1::VerifiedError* ve = p->mutable_verified();
+    ve->Clear();  // no sub-message to free: scalars, a string, repeated bins kept
     ve->set_count(st.count);
     ve->set_rmse(st.rmse);
     ve->set_bias(st.bias);
@@ -642,6 +649,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
       }
     }
     v1::QuestionProgress* pr = p->mutable_progress();
+    pr->Clear();  // scalars and strings only
     if (q.successor >= 0) {
       // Answered by regression on a successor table: report its updates and the
       // table's first component's learning progress.

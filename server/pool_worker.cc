@@ -361,8 +361,11 @@ void PoolWorker::ApplyTask(Task& task) {
     b->set_pool(name_);
     b->set_stream(stream);
     for (size_t c = 0; c < t.columns->num_columns(); ++c) b->add_columns(t.columns->column_name(c));
-    *b->mutable_batch() = *t.batch;
+    // The caller's batch is serialized where it is, not copied (a copy costs two
+    // allocations per frame); the record lends it and gives it back before it is freed.
+    b->unsafe_arena_set_allocated_batch(const_cast<v1::FrameBatch*>(t.batch));
     auto appended = options_.wal->Append(rec);
+    b->unsafe_arena_release_batch();
     if (!appended.ok()) {
       if (m != nullptr) m->BatchRefused("disk_full");
       r.status = appended.status();

@@ -39,7 +39,7 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
     const bool capped = step_ - h.held_at >= static_cast<int64_t>(horizon_);
     if (!done && !capped) break;
     Verify(h, Realized(h), wt_ == 0.0 ? 0.0 : wt_ / h.wt0, !done);
-    held_start_ = (held_start_ + 1) % cap;
+    if (++held_start_ == cap) held_start_ = 0;  // no division on the per-frame path
     --held_count_;
   }
   if (held_count_ == 0) {
@@ -53,8 +53,8 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
 
 void ReturnVerifier::Rebase() {
   const size_t cap = held_.size();
-  for (size_t i = 0; i < held_count_; ++i) {
-    Held& h = held_[(held_start_ + i) % cap];
+  for (size_t i = 0, at = held_start_; i < held_count_; ++i, at = at + 1 == cap ? 0 : at + 1) {
+    Held& h = held_[at];
     h.base = Realized(h);
     h.acc0 = 0;
     h.disc0 /= disc_;
@@ -83,7 +83,9 @@ void ReturnVerifier::Hold(double prediction, uint64_t seq) {
     held_start_ = (held_start_ + 1) % cap;
     --held_count_;
   }
-  held_[(held_start_ + held_count_) % cap] =
+  size_t at = held_start_ + held_count_;
+  if (at >= cap) at -= cap;
+  held_[at] =
       Held{prediction, 0.0, acc_, disc_, wt_, 1.0 / (disc_ * wt_), seq, step_};
   ++held_count_;
 }
@@ -95,7 +97,7 @@ void ReturnVerifier::Verify(const Held& h, double realized, double weight, bool 
   if (window_count_ == window_.size()) AddToSums(window_[window_next_], -1.0);
   window_[window_next_] = added;
   AddToSums(added, 1.0);
-  window_next_ = (window_next_ + 1) % window_.size();
+  if (++window_next_ == window_.size()) window_next_ = 0;
   window_count_ = std::min(window_count_ + 1, window_.size());
   if (window_next_ == 0) RecomputeSums();
   if (probability_) {
