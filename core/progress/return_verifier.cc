@@ -49,6 +49,12 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
   } else if (const double scale = disc_ * wt_; scale < 1e-3 || scale > 1e3 || wt_ < 1e-3) {
     Rebase();
   }
+  // The next call verifies the oldest held prediction (read just now), then reads the
+  // one after it and overwrites the window's next slot: both written a horizon ago and
+  // long out of cache (a pool's verifiers hold megabytes). Fetch them while the rest of
+  // the frame runs.
+  __builtin_prefetch(&held_[held_start_ + 1 == cap ? 0 : held_start_ + 1], 0, 3);
+  __builtin_prefetch(&window_[window_next_], 1, 3);
 }
 
 void ReturnVerifier::Rebase() {

@@ -103,7 +103,7 @@ class ReturnVerifier {
   bool LoadState(StateReader& r);
 
  private:
-  struct Held {
+  struct alignas(64) Held {  // one cache line
     double prediction;
     double base;       // realized return folded in at the last rebase
     double acc0;       // acc_ when held (or at the last rebase)
