@@ -49,8 +49,10 @@ class StreamHistory {
     bool full = false;
     void Push(const T& v) {
       items[next] = v;
-      next = (next + 1) % items.size();
-      full |= next == 0;
+      if (++next == items.size()) {  // no division: one push per question per frame
+        next = 0;
+        full = true;
+      }
     }
     template <typename F>
     void ForEach(F f) const {
