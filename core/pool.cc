@@ -33,17 +33,44 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::Create(const v1::PoolSpec& spec) {
   return std::unique_ptr<Pool>(new Pool(std::move(compiled)));
 }
 
+Pool::Workspace::Workspace(const CompiledPoolSpec& spec, uint32_t num_actions)
+    : learner(spec.recipe->num_features() * num_actions,
+              [&spec] {
+                size_t widest = 1;
+                for (const BlockSpec& b : spec.blocks) widest = std::max(widest, b.questions.size());
+                return static_cast<uint32_t>(widest);
+              }(),
+              num_actions) {
+  const size_t nq = spec.questions.size();
+  extended.resize(spec.num_extended_signals());
+  next_x.Reserve(spec.recipe->max_active());
+  next_answers.resize(nq);
+  cumulants.resize(nq);
+  block_answers.resize(nq);
+  trans_cumulant.resize(nq);
+  trans_continuation.resize(nq);
+  trans_pi.resize(nq);
+  trans_rho.resize(nq);
+  pi_now.resize(num_actions);
+  pi_next.resize(num_actions);
+  q_values.resize(num_actions);
+  behavior_cell.Reserve(1);
+}
+
+std::unique_ptr<Pool::Workspace> Pool::NewWorkspace() const {
+  return std::make_unique<Workspace>(spec_, num_actions_);
+}
+
+bool Pool::supports_concurrent_streams() const {
+  // Pooled weights and the raw inputs' running normalization are shared by every stream.
+  return !spec_.pooled && normalizer_.count.empty();
+}
+
 Pool::Pool(CompiledPoolSpec spec)
     : spec_(std::move(spec)),
       num_actions_(static_cast<uint32_t>(std::max<size_t>(spec_.actions.size(), 1))),
       normalizer_(spec_.recipe->NewNormalizerState()),
-      learner_(spec_.recipe->num_features() * num_actions_,
-               [this] {
-                 size_t widest = 1;
-                 for (const BlockSpec& b : spec_.blocks) widest = std::max(widest, b.questions.size());
-                 return static_cast<uint32_t>(widest);
-               }(),
-               num_actions_) {
+      workspace_(spec_, num_actions_) {
   if (spec_.pooled) {
     for (const BlockSpec& b : spec_.blocks) {
       pooled_params_.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
@@ -55,20 +82,6 @@ Pool::Pool(CompiledPoolSpec spec)
       if (t >= 0) pooled_regression_[qi].assign(spec_.tables[static_cast<size_t>(t)].count, 0.0);
     }
   }
-  const size_t nq = spec_.questions.size();
-  extended_.resize(spec_.num_extended_signals());
-  next_x_.Reserve(spec_.recipe->max_active());
-  next_answers_.resize(nq);
-  cumulants_.resize(nq);
-  block_answers_.resize(nq);
-  trans_cumulant_.resize(nq);
-  trans_continuation_.resize(nq);
-  trans_pi_.resize(nq);
-  trans_rho_.resize(nq);
-  pi_now_.resize(num_actions_);
-  pi_next_.resize(num_actions_);
-  q_values_.resize(num_actions_);
-  behavior_cell_.Reserve(1);
 }
 
 absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1::PoolSpec& spec) {
@@ -229,8 +242,9 @@ std::optional<int64_t> Pool::AbsoluteTime(const FrameInput& frame) const {
   return std::nullopt;
 }
 
-double Pool::TransitionCumulant(const CompiledCumulant& c, const FrameInput& frame,
-                                const std::optional<int64_t>& now, const StreamState& s) const {
+double Pool::TransitionCumulant(const Workspace& ws, const CompiledCumulant& c,
+                                const FrameInput& frame, const std::optional<int64_t>& now,
+                                const StreamState& s) const {
   switch (c.kind) {
     case CumulantKind::kSignal:
       return frame.values[c.signal];
@@ -249,12 +263,12 @@ double Pool::TransitionCumulant(const CompiledCumulant& c, const FrameInput& fra
       }
       return kNaN;
     case CumulantKind::kQuestion:
-      return next_answers_[c.question];
+      return ws.next_answers[c.question];
   }
   return kNaN;
 }
 
-void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
+void Pool::AnswerSuccessorQuestions(Workspace& ws, StreamState& s, const FrameInput& frame,
                                     const std::optional<int64_t>& now, bool learn) {
   for (size_t qi = 0; qi < spec_.num_visible_questions; ++qi) {
     const CompiledQuestion& q = spec_.questions[qi];
@@ -263,24 +277,24 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
     std::vector<double>& w = spec_.pooled ? pooled_regression_[qi] : s.regression[qi];
     uint64_t& updates = spec_.pooled ? pooled_regression_updates_[qi] : s.regression_updates[qi];
     // The transition as the table's first component saw it.
-    trans_continuation_[qi] = trans_continuation_[table.first];
-    trans_pi_[qi] = trans_pi_[table.first];
-    trans_rho_[qi] = trans_rho_[table.first];
-    trans_cumulant_[qi] = kNaN;
+    ws.trans_continuation[qi] = ws.trans_continuation[table.first];
+    ws.trans_pi[qi] = ws.trans_pi[table.first];
+    ws.trans_rho[qi] = ws.trans_rho[table.first];
+    ws.trans_cumulant[qi] = kNaN;
     if (learn) {
       // Normalized LMS: c_{t+1} ~ w . phi_{t+1}.
-      const double c = TransitionCumulant(q.cumulant, frame, now, s);
+      const double c = TransitionCumulant(ws, q.cumulant, frame, now, s);
       double fit = 0, norm = 0;
       bool complete = !std::isnan(c);
       // phi_{t+1}: the table's components already read it as their cumulants.
-      const double* phi_next = &trans_cumulant_[table.first];
+      const double* phi_next = &ws.trans_cumulant[table.first];
       for (size_t k = 0; k < table.count && complete; ++k) {
         const double phi = phi_next[k];
         complete &= !std::isnan(phi);
         fit += w[k] * phi;
         norm += phi * phi;
       }
-      trans_cumulant_[qi] = c;
+      ws.trans_cumulant[qi] = c;
       if (complete && norm > 0) {
         const double step = q.regression_step_size * (c - fit) / norm;
         for (size_t k = 0; k < table.count; ++k) {
@@ -292,8 +306,8 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
     if (q.gpi_tables.empty()) {
       // The answer: psi(S_{t+1}) . w.
       double answer = 0;
-      for (size_t k = 0; k < table.count; ++k) answer += next_answers_[table.first + k] * w[k];
-      next_answers_[qi] = answer;
+      for (size_t k = 0; k < table.count; ++k) answer += ws.next_answers[table.first + k] * w[k];
+      ws.next_answers[qi] = answer;
       continue;
     }
     // Generalized policy improvement: max_a max_i psi_i(S_{t+1}, a) . w.
@@ -301,27 +315,27 @@ void Pool::AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
     int best_action = 0;
     for (int ti : q.gpi_tables) {
       const SuccessorTableSpec& t = spec_.tables[static_cast<size_t>(ti)];
-      std::fill(pi_now_.begin(), pi_now_.end(), 0.0);  // scratch: sum_k psi_k(s, a) w_k
+      std::fill(ws.pi_now.begin(), ws.pi_now.end(), 0.0);  // scratch: sum_k psi_k(s, a) w_k
       for (size_t k = 0; k < t.count; ++k) {
         const CompiledQuestion& component = spec_.questions[t.first + k];
-        learner_.ActionValues(next_x_, ParamsFor(s, component.block),
+        ws.learner.ActionValues(ws.next_x, ParamsFor(s, component.block),
                               static_cast<uint32_t>(component.index_in_block),
-                              absl::MakeSpan(q_values_));
-        for (uint32_t a = 0; a < num_actions_; ++a) pi_now_[a] += q_values_[a] * w[k];
+                              absl::MakeSpan(ws.q_values));
+        for (uint32_t a = 0; a < num_actions_; ++a) ws.pi_now[a] += ws.q_values[a] * w[k];
       }
       for (uint32_t a = 0; a < num_actions_; ++a) {
-        if (pi_now_[a] > best) {
-          best = pi_now_[a];
+        if (ws.pi_now[a] > best) {
+          best = ws.pi_now[a];
           best_action = static_cast<int>(a);
         }
       }
     }
-    next_answers_[qi] = best;
+    ws.next_answers[qi] = best;
     s.greedy_actions[qi] = best_action;
   }
 }
 
-void Pool::PolicyDistribution(const CompiledPolicy& policy, StreamState& s,
+void Pool::PolicyDistribution(Workspace& ws, const CompiledPolicy& policy, StreamState& s,
                               const SparseFeatures& x, absl::Span<double> out) {
   switch (policy.kind) {
     case PolicyKind::kBehavior:
@@ -336,30 +350,30 @@ void Pool::PolicyDistribution(const CompiledPolicy& policy, StreamState& s,
       return;
     case PolicyKind::kGreedy: {
       const CompiledQuestion& control = spec_.questions[policy.control_question];
-      learner_.ActionValues(x, ParamsFor(s, control.block),
+      ws.learner.ActionValues(x, ParamsFor(s, control.block),
                             static_cast<uint32_t>(control.index_in_block),
-                            absl::MakeSpan(q_values_));
+                            absl::MakeSpan(ws.q_values));
       double best = -std::numeric_limits<double>::infinity();
-      for (double v : q_values_) best = std::max(best, v);
+      for (double v : ws.q_values) best = std::max(best, v);
       int count = 0;
-      for (double v : q_values_) count += (v == best);
+      for (double v : ws.q_values) count += (v == best);
       for (size_t a = 0; a < out.size(); ++a) {
         out[a] = count == 0 ? 1.0 / static_cast<double>(out.size())
-                            : (q_values_[a] == best ? 1.0 / count : 0.0);
+                            : (ws.q_values[a] == best ? 1.0 / count : 0.0);
       }
       return;
     }
   }
 }
 
-double Pool::EstimateBehavior(StreamState& s, int action) {
+double Pool::EstimateBehavior(Workspace& ws, StreamState& s, int action) {
   // Laplace-smoothed counts of actions in the frame's coarse cell, before this action.
-  SparseFeatures& cell = behavior_cell_;
+  SparseFeatures& cell = ws.behavior_cell;
   cell.Clear();
   double inputs[8];
   bool complete = true;
   for (size_t d = 0; d < spec_.behavior_cell_inputs.size(); ++d) {
-    inputs[d] = extended_[spec_.behavior_cell_inputs[d]];
+    inputs[d] = ws.extended[spec_.behavior_cell_inputs[d]];
     complete &= !std::isnan(inputs[d]);
   }
   size_t c = spec_.behavior_cells->num_tiles();  // the "unknown" cell
@@ -377,6 +391,10 @@ double Pool::EstimateBehavior(StreamState& s, int action) {
 }
 
 absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
+  return Apply(stream, frame, workspace_);
+}
+
+absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame, Workspace& ws) {
   if (frame.values.size() != spec_.signal_names.size()) {
     return absl::InvalidArgumentError(absl::StrCat("frame seq ", frame.seq, ": values: has ",
                                                    frame.values.size(), " entries, the pool has ",
@@ -397,10 +415,10 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
   StreamState& s = GetOrCreateStream(stream);
 
   // Extended signal vector: declared signals, then clock signals; NaN = missing.
-  std::copy(frame.values.begin(), frame.values.end(), extended_.begin());
+  std::copy(frame.values.begin(), frame.values.end(), ws.extended.begin());
   ComputeClockSignals(frame.time_kind, frame.time_micros, spec_.time_zone,
-                      absl::MakeSpan(extended_).subspan(spec_.signal_names.size()));
-  if (spec_.recipe->Encode(extended_, &normalizer_, &next_x_) > 0) ++s.feature_gap_frames;
+                      absl::MakeSpan(ws.extended).subspan(spec_.signal_names.size()));
+  if (spec_.recipe->Encode(ws.extended, &normalizer_, &ws.next_x) > 0) ++s.feature_gap_frames;
   const std::optional<int64_t> now = AbsoluteTime(frame);
 
   if (frame.restart) {
@@ -412,17 +430,17 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     BlockParams& params = ParamsFor(s, bi);
     BlockTraceState& state = s.block_states[bi];
     const size_t nq = block.questions.size();
-    const auto answers = absl::MakeSpan(block_answers_.data(), nq);
+    const auto answers = absl::MakeSpan(ws.block_answers.data(), nq);
     const bool off_policy = block.policy.kind != PolicyKind::kBehavior;
     if (block.action_valued && block.learner == LearnerKind::kTreeBackup) {
-      PolicyDistribution(block.policy, s, next_x_, absl::MakeSpan(pi_next_));
+      PolicyDistribution(ws, block.policy, s, ws.next_x, absl::MakeSpan(ws.pi_next));
     }
     int greedy = -1;
     if (!learn) {
-      learner_.Answer(block, next_x_, pi_next_, params, answers, &greedy);
+      ws.learner.Answer(block, ws.next_x, ws.pi_next, params, answers, &greedy);
       for (size_t i = 0; i < nq; ++i) {
         const size_t qi = block.questions[i];
-        next_answers_[qi] = answers[i];
+        ws.next_answers[qi] = answers[i];
         s.greedy_actions[qi] = block.learner == LearnerKind::kQLambda ? greedy : -1;
       }
       continue;
@@ -442,7 +460,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     // Importance ratio (state values) or target distributions (action values).
     BlockStep step;
     step.x = &s.prev_x;
-    step.x_next = &next_x_;
+    step.x_next = &ws.next_x;
     step.gamma_next = gamma_next;
     step.own_params = !spec_.pooled;
     bool usable = continuation_known;
@@ -452,26 +470,26 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
       step.action = s.prev_action;
       if (block.learner == LearnerKind::kQLambda && usable) {
         // The control question's own greedy policy at S_t, before this update.
-        learner_.ActionValues(s.prev_x, params, 0, absl::MakeSpan(q_values_));
+        ws.learner.ActionValues(s.prev_x, params, 0, absl::MakeSpan(ws.q_values));
         double best = -std::numeric_limits<double>::infinity();
-        for (double v : q_values_) best = std::max(best, v);
+        for (double v : ws.q_values) best = std::max(best, v);
         int count = 0;
-        for (double v : q_values_) count += (v == best);
-        pi_taken = q_values_[static_cast<size_t>(s.prev_action)] == best && count > 0
+        for (double v : ws.q_values) count += (v == best);
+        pi_taken = ws.q_values[static_cast<size_t>(s.prev_action)] == best && count > 0
                        ? 1.0 / count
                        : 0.0;
       }
       if (block.learner == LearnerKind::kTreeBackup && usable) {
-        PolicyDistribution(block.policy, s, s.prev_x, absl::MakeSpan(pi_now_));
-        pi_taken = pi_now_[static_cast<size_t>(s.prev_action)];
+        PolicyDistribution(ws, block.policy, s, s.prev_x, absl::MakeSpan(ws.pi_now));
+        pi_taken = ws.pi_now[static_cast<size_t>(s.prev_action)];
       }
-      step.pi_now = pi_now_;
-      step.pi_next = pi_next_;
+      step.pi_now = ws.pi_now;
+      step.pi_next = ws.pi_next;
     } else if (off_policy) {
       usable &= s.prev_action >= 0 && !std::isnan(s.prev_behavior_prob);
       if (usable) {
-        PolicyDistribution(block.policy, s, s.prev_x, absl::MakeSpan(pi_now_));
-        pi_taken = pi_now_[static_cast<size_t>(s.prev_action)];
+        PolicyDistribution(ws, block.policy, s, s.prev_x, absl::MakeSpan(ws.pi_now));
+        pi_taken = ws.pi_now[static_cast<size_t>(s.prev_action)];
         double rho = pi_taken / s.prev_behavior_prob;
         const double clip = spec_.questions[block.questions[0]].rho_clip;
         if (clip > 0) rho = std::min(rho, clip);
@@ -480,23 +498,23 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
     }
     for (size_t i = 0; i < nq; ++i) {
       const size_t qi = block.questions[i];
-      const double value = TransitionCumulant(spec_.questions[qi].cumulant, frame, now, s);
-      trans_cumulant_[qi] = continuation_known ? value : kNaN;
-      trans_continuation_[qi] = gamma_next;
-      trans_pi_[qi] = usable ? pi_taken : 0.0;
-      trans_rho_[qi] = step.rho;
-      cumulants_[i] = usable ? trans_cumulant_[qi] : kNaN;
+      const double value = TransitionCumulant(ws, spec_.questions[qi].cumulant, frame, now, s);
+      ws.trans_cumulant[qi] = continuation_known ? value : kNaN;
+      ws.trans_continuation[qi] = gamma_next;
+      ws.trans_pi[qi] = usable ? pi_taken : 0.0;
+      ws.trans_rho[qi] = step.rho;
+      ws.cumulants[i] = usable ? ws.trans_cumulant[qi] : kNaN;
     }
-    step.cumulants = absl::MakeConstSpan(cumulants_.data(), nq);
-    learner_.Learn(block, spec_.questions, step, params, state, answers, &greedy);
+    step.cumulants = absl::MakeConstSpan(ws.cumulants.data(), nq);
+    ws.learner.Learn(block, spec_.questions, step, params, state, answers, &greedy);
     for (size_t i = 0; i < nq; ++i) {
       const size_t qi = block.questions[i];
-      next_answers_[qi] = answers[i];
+      ws.next_answers[qi] = answers[i];
       s.greedy_actions[qi] = block.learner == LearnerKind::kQLambda ? greedy : -1;
     }
   }
 
-  if (!spec_.tables.empty()) AnswerSuccessorQuestions(s, frame, now, learn);
+  if (!spec_.tables.empty()) AnswerSuccessorQuestions(ws, s, frame, now, learn);
 
   // Verified error: held predictions accumulate the transition's cumulant; off-policy
   // questions verify on the target's stretches or with importance weights (see
@@ -507,19 +525,19 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame) {
       // A GPI answer is about a policy the behavior does not follow: not verified.
       verifier.Interrupt();
     } else if (learn) {
-      verifier.Observe(trans_cumulant_[qi], trans_continuation_[qi], trans_pi_[qi],
-                       trans_rho_[qi]);
+      verifier.Observe(ws.trans_cumulant[qi], ws.trans_continuation[qi], ws.trans_pi[qi],
+                       ws.trans_rho[qi]);
     }
-    verifier.Hold(next_answers_[qi], frame.seq);
+    verifier.Hold(ws.next_answers[qi], frame.seq);
   }
 
-  std::swap(s.prev_x, next_x_);
-  std::copy(next_answers_.begin(), next_answers_.end(), s.answers.begin());
+  std::swap(s.prev_x, ws.next_x);
+  std::copy(ws.next_answers.begin(), ws.next_answers.end(), s.answers.begin());
   s.prev_action = frame.action.has_value() ? static_cast<int>(*frame.action) : -1;
   if (s.prev_action < 0) {
     s.prev_behavior_prob = kNaN;
   } else if (spec_.estimate_behavior) {
-    s.prev_behavior_prob = EstimateBehavior(s, s.prev_action);
+    s.prev_behavior_prob = EstimateBehavior(ws, s, s.prev_action);
   } else {
     s.prev_behavior_prob = frame.behavior_prob.value_or(kNaN);
   }

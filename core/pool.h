@@ -50,6 +50,31 @@ class Pool {
   // questions learns (see block_learner.h), in dependency order, then answers at t+1.
   absl::Status Apply(absl::string_view stream, const FrameInput& frame);
 
+  // Scratch for applying frames, sized for this pool's spec, so that a frame allocates
+  // nothing. Apply() above uses the pool's own.
+  struct Workspace {
+    Workspace(const CompiledPoolSpec& spec, uint32_t num_actions);
+    BlockLearner learner;
+    std::vector<double> extended;
+    SparseFeatures next_x;
+    std::vector<double> next_answers;   // per question, at the new frame
+    std::vector<double> cumulants;      // per question of the current block
+    std::vector<double> block_answers;  // per question of the current block
+    std::vector<double> trans_cumulant, trans_continuation, trans_pi, trans_rho;
+    std::vector<double> pi_now, pi_next, q_values;
+    SparseFeatures behavior_cell;  // the coarse cell of the behavior estimate
+  };
+  std::unique_ptr<Workspace> NewWorkspace() const;
+
+  // Whether streams may learn concurrently: true unless learning is pooled or the recipe
+  // normalizes raw inputs (both are state every stream shares). Then Apply() with a
+  // workspace of its own per thread may run on several threads at once for DISTINCT
+  // streams that already exist (has_stream()), and nothing else may run meanwhile (the
+  // verification sink is called from each of those threads). A stream's answers depend
+  // only on its own frames, so the result is the same in any interleaving.
+  bool supports_concurrent_streams() const;
+  absl::Status Apply(absl::string_view stream, const FrameInput& frame, Workspace& ws);
+
   // Last applied seq of `stream`, 0 if the pool has not seen it.
   uint64_t last_seq(absl::string_view stream) const;
   // Frames of `stream` applied so far (kept across spec changes and checkpoints).
@@ -120,15 +145,16 @@ class Pool {
   BlockParams& ParamsFor(StreamState& s, size_t b);
   const BlockParams& ParamsFor(const StreamState& s, size_t b) const;
   // pi(.|x) of a target policy into `out` (size num_actions); false if not defined.
-  void PolicyDistribution(const CompiledPolicy& policy, StreamState& s, const SparseFeatures& x,
-                          absl::Span<double> out);
-  double EstimateBehavior(StreamState& s, int action);
+  void PolicyDistribution(Workspace& ws, const CompiledPolicy& policy, StreamState& s,
+                          const SparseFeatures& x, absl::Span<double> out);
+  double EstimateBehavior(Workspace& ws, StreamState& s, int action);
   std::optional<int64_t> AbsoluteTime(const FrameInput& frame) const;
   // c_{t+1} of a transition into `frame` (NaN when it cannot be known).
-  double TransitionCumulant(const CompiledCumulant& c, const FrameInput& frame,
-                            const std::optional<int64_t>& now, const StreamState& s) const;
+  double TransitionCumulant(const Workspace& ws, const CompiledCumulant& c,
+                            const FrameInput& frame, const std::optional<int64_t>& now,
+                            const StreamState& s) const;
   // Answers (and, when learning, regresses) the successor-table questions.
-  void AnswerSuccessorQuestions(StreamState& s, const FrameInput& frame,
+  void AnswerSuccessorQuestions(Workspace& ws, StreamState& s, const FrameInput& frame,
                                 const std::optional<int64_t>& now, bool learn);
 
   CompiledPoolSpec spec_;
@@ -140,16 +166,7 @@ class Pool {
   FeatureRecipe::NormalizerState normalizer_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamState>> streams_;
 
-  // Scratch reused across frames (the writer is single-threaded): no allocation per frame.
-  BlockLearner learner_;
-  std::vector<double> extended_;
-  SparseFeatures next_x_;
-  std::vector<double> next_answers_;   // per question, at the new frame
-  std::vector<double> cumulants_;      // per question of the current block
-  std::vector<double> block_answers_;  // per question of the current block
-  std::vector<double> trans_cumulant_, trans_continuation_, trans_pi_, trans_rho_;
-  std::vector<double> pi_now_, pi_next_, q_values_;
-  SparseFeatures behavior_cell_;  // the coarse cell of the behavior estimate
+  Workspace workspace_;  // Apply()'s
 };
 
 }  // namespace bellwether

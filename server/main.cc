@@ -65,6 +65,10 @@ ABSL_FLAG(int32_t, history_streams, 16,
           "Streams per pool that keep a history (recent verified predictions and progress "
           "samples) for the status page and the Progress RPC: the first ones to send frames");
 ABSL_FLAG(int32_t, history_points, 360, "Points per question in each history ring");
+ABSL_FLAG(int32_t, writer_threads, 0,
+          "Threads per pool applying batches of different streams at once (pools whose streams "
+          "learn independently: per-stream, no raw inputs); 0: one per hardware thread, at "
+          "most 8; 1: a single writer");
 ABSL_FLAG(int32_t, metrics_max_questions, 200,
           "Per-question metric series for at most this many (pool, question) pairs; beyond "
           "it, pool-level aggregates only (bounds label cardinality)");
@@ -263,6 +267,7 @@ int Main(int argc, char** argv) {
        {std::pair{"--queue-batches", absl::GetFlag(FLAGS_queue_batches)},
         std::pair{"--history-streams", absl::GetFlag(FLAGS_history_streams)},
         std::pair{"--history-points", absl::GetFlag(FLAGS_history_points)},
+        std::pair{"--writer-threads", absl::GetFlag(FLAGS_writer_threads)},
         std::pair{"--metrics-max-questions", absl::GetFlag(FLAGS_metrics_max_questions)}}) {
     if (value < 0 || (value == 0 && std::string(name) == "--queue-batches")) {
       std::cerr << "bellwetherd: " << name << " " << value << ": must be "
@@ -295,6 +300,10 @@ int Main(int argc, char** argv) {
   worker_options.queue_capacity = static_cast<size_t>(absl::GetFlag(FLAGS_queue_batches));
   worker_options.history_streams = static_cast<size_t>(absl::GetFlag(FLAGS_history_streams));
   worker_options.history_points = static_cast<size_t>(absl::GetFlag(FLAGS_history_points));
+  worker_options.writer_threads =
+      absl::GetFlag(FLAGS_writer_threads) > 0
+          ? static_cast<size_t>(std::min(absl::GetFlag(FLAGS_writer_threads), 64))
+          : std::clamp<size_t>(std::thread::hardware_concurrency(), 1, 8);
   std::atomic<uint64_t> frames_applied{0};
   worker_options.frames_applied_total = &frames_applied;
   std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it

@@ -28,10 +28,13 @@ std::string RejectionReason(absl::string_view message) {
   return "other";
 }
 
+thread_local PoolWorker::ApplyContext* PoolWorker::current_context_ = nullptr;
+
 PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation,
                        uint64_t last_lsn)
     : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {
   estimate_ = EstimateState(pool_->spec());
+  writer_context_.workspace = pool_->NewWorkspace();
   generation_ = MakeGeneration(generation);
   for (const std::string& stream : pool_->stream_names()) {
     // Recovered streams: everything applied came from the log, so it is durable.
@@ -48,6 +51,11 @@ PoolWorker::~PoolWorker() {
     stopping_ = true;
   }
   thread_.join();
+  {
+    absl::MutexLock lock(&helpers_mu_);
+    for (auto& h : helpers_) h->stop = true;
+  }
+  for (auto& h : helpers_) h->thread.join();
   // Batch callbacks still waiting for the log's flusher touch this worker: let them run.
   while (pending_durable_.load() > 0) absl::SleepFor(absl::Milliseconds(1));
 }
@@ -65,12 +73,14 @@ std::shared_ptr<PoolWorker::Generation> PoolWorker::MakeGeneration(uint64_t id) 
 }
 
 void PoolWorker::InstallSink() {
+  // Called on whichever thread applies the batch: the points go to that thread's context.
   pool_->SetVerificationSink([this](const std::string& stream, size_t question, uint64_t seq,
                                     double prediction, double realized, bool truncated) {
+    ApplyContext* c = current_context_;
     // Only streams that keep history, and only visible questions.
-    if (current_stream_ == nullptr || stream != *current_stream_) return;
+    if (c == nullptr || c->current_stream == nullptr || stream != *c->current_stream) return;
     if (question >= pool_->spec().num_visible_questions) return;
-    pending_points_.push_back({question, {seq, prediction, realized, truncated}});
+    c->pending_points.push_back({question, {seq, prediction, realized, truncated}});
   });
 }
 
@@ -244,28 +254,49 @@ void PoolWorker::History(const std::string& stream, const std::vector<size_t>& q
   }
 }
 
+void PoolWorker::NextGroup(std::vector<Task>* group) {
+  group->clear();
+  absl::MutexLock lock(&queue_mu_);
+  queue_mu_.Await(absl::Condition(
+      +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->queue_mu_) {
+        return w->stopping_ || !w->queue_.empty();
+      },
+      this));
+  if (queue_.empty()) return;  // stopping with nothing left
+  group->push_back(std::move(queue_.front()));
+  queue_.pop_front();
+  auto is_batch = [](const Task& t) { return t.capture == nullptr && t.replace == nullptr; };
+  // A group: batches of distinct streams that exist already (a first batch creates its
+  // stream, which the others must not see half made), taken in queue order, so that each
+  // stream's batches still apply in the order they came.
+  if (is_batch(group->front()) && options_.writer_threads > 1 &&
+      pool_->supports_concurrent_streams() && pool_->has_stream(*group->front().batch.stream)) {
+    while (group->size() < options_.writer_threads && !queue_.empty() &&
+           is_batch(queue_.front())) {
+      const std::string& stream = *queue_.front().batch.stream;
+      if (!pool_->has_stream(stream)) break;
+      bool repeated = false;
+      for (const Task& t : *group) repeated |= *t.batch.stream == stream;
+      if (repeated) break;
+      group->push_back(std::move(queue_.front()));
+      queue_.pop_front();
+    }
+  }
+  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+}
+
 void PoolWorker::Run() {
   while (true) {
-    Task task;
-    {
-      absl::MutexLock lock(&queue_mu_);
-      queue_mu_.Await(absl::Condition(
-          +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->queue_mu_) {
-            return w->stopping_ || !w->queue_.empty();
-          },
-          this));
-      if (queue_.empty()) return;  // stopping with nothing left
-      task = std::move(queue_.front());
-      queue_.pop_front();
-      queue_depth_.store(queue_.size(), std::memory_order_relaxed);
-    }
+    NextGroup(&group_);
+    if (group_.empty()) return;
+    Task& task = group_.front();
     if (task.capture != nullptr) {
       if (deleted_.load()) {
         *task.replace_status = absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
       } else {
         *task.capture->mutable_spec() = pool_->spec().proto;
         task.capture->set_generation(current()->id);
-        task.capture->set_wal_lsn(last_lsn_);
+        task.capture->set_wal_lsn(last_lsn_.load());
         pool_->SaveState(task.capture->mutable_state());
       }
       absl::MutexLock lock(&queue_mu_);
@@ -275,8 +306,54 @@ void PoolWorker::Run() {
       absl::MutexLock lock(&queue_mu_);
       *task.replace_done = true;
     } else {
-      ApplyTask(task);
+      RunGroup(group_);
     }
+  }
+}
+
+void PoolWorker::RunGroup(std::vector<Task>& group) {
+  if (group.size() == 1) {
+    ApplyTask(group.front(), writer_context_);
+    return;
+  }
+  // The group's threads only look their stream's counts up.
+  for (const Task& t : group) counts_.try_emplace(*t.batch.stream);
+  concurrent_batches_.fetch_add(group.size());
+  while (helpers_.size() + 1 < group.size()) {
+    auto h = std::make_unique<Helper>();
+    h->context.workspace = pool_->NewWorkspace();
+    Helper* raw = h.get();
+    helpers_.push_back(std::move(h));
+    raw->thread = std::thread([this, raw] { HelperLoop(raw); });
+  }
+  {
+    absl::MutexLock lock(&helpers_mu_);
+    for (size_t i = 1; i < group.size(); ++i) helpers_[i - 1]->task = &group[i];
+    helpers_busy_ = group.size() - 1;
+  }
+  ApplyTask(group.front(), writer_context_);
+  absl::MutexLock lock(&helpers_mu_);
+  helpers_mu_.Await(absl::Condition(
+      +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->helpers_mu_) {
+        return w->helpers_busy_ == 0;
+      },
+      this));
+}
+
+void PoolWorker::HelperLoop(Helper* h) {
+  while (true) {
+    Task* task;
+    {
+      absl::MutexLock lock(&helpers_mu_);
+      helpers_mu_.Await(absl::Condition(
+          +[](Helper* x) { return x->task != nullptr || x->stop; }, h));
+      if (h->task == nullptr) return;  // stopping
+      task = h->task;
+    }
+    ApplyTask(*task, h->context);
+    absl::MutexLock lock(&helpers_mu_);
+    h->task = nullptr;
+    --helpers_busy_;
   }
 }
 
@@ -294,10 +371,13 @@ void PoolWorker::ReplaceTask(Task& task) {
       *task.replace_status = lsn.status();
       return;
     }
-    last_lsn_ = *lsn;
+    last_lsn_.store(*lsn);
   }
   pool_ = std::move(*next);
   estimate_ = EstimateState(pool_->spec());
+  // Scratch sized for the new spec (the helpers are idle between groups).
+  writer_context_.workspace = pool_->NewWorkspace();
+  for (auto& h : helpers_) h->context.workspace = pool_->NewWorkspace();
   InstallSink();
   {
     absl::MutexLock lock(&generation_mu_);
@@ -325,7 +405,7 @@ void PoolWorker::Publish(const std::string& stream) {
   snapshots_[stream] = std::move(snapshot);
 }
 
-void PoolWorker::ApplyTask(Task& task) {
+void PoolWorker::ApplyTask(Task& task, ApplyContext& context) {
   BatchTask& t = task.batch;
   BatchResult r;
   const auto start = std::chrono::steady_clock::now();
@@ -375,7 +455,10 @@ void PoolWorker::ApplyTask(Task& task) {
       return;
     }
     lsn = *appended;
-    last_lsn_ = lsn;
+    // Threads of a group append concurrently: keep the highest.
+    uint64_t seen = last_lsn_.load();
+    while (seen < lsn && !last_lsn_.compare_exchange_weak(seen, lsn)) {
+    }
   }
   if (!r.status.ok()) {
     if (m != nullptr) {
@@ -399,8 +482,9 @@ void PoolWorker::ApplyTask(Task& task) {
     }
     keep_history = it != history_.end();
   }
-  current_stream_ = keep_history ? &stream : nullptr;
-  pending_points_.clear();
+  context.current_stream = keep_history ? &stream : nullptr;
+  context.pending_points.clear();
+  current_context_ = &context;
 
   if (m != nullptr) m->FramesReceived(static_cast<double>(t.batch->frames_size()));
   StreamCounts& counts = counts_[stream];
@@ -412,15 +496,15 @@ void PoolWorker::ApplyTask(Task& task) {
       ++r.duplicates;  // a resend after a reconnect: already learned from
       continue;
     }
-    absl::Status s = FrameFromProto(frame, *t.columns, &values_, &input);
-    if (s.ok()) s = pool_->Apply(stream, input);
+    absl::Status s = FrameFromProto(frame, *t.columns, &context.values, &input);
+    if (s.ok()) s = pool_->Apply(stream, input, *context.workspace);
     if (s.ok() && keep_history && input.seq >= next_sample_seq) {
       // A progress sample every StreamHistory::kSampleEvery frames, taken mid-batch so
       // the trend has the same resolution whatever the producer's batch size.
       next_sample_seq = input.seq + StreamHistory::kSampleEvery;
-      if (pool_->GetPredictions(stream, &sample_scratch_).ok()) {
+      if (pool_->GetPredictions(stream, &context.sample_scratch).ok()) {
         absl::MutexLock lock(&history_mu_);
-        history_[stream]->MaybeSample(sample_scratch_);
+        history_[stream]->MaybeSample(context.sample_scratch);
       }
     }
     if (!s.ok()) {
@@ -435,13 +519,14 @@ void PoolWorker::ApplyTask(Task& task) {
     ++r.frames_applied;
   }
   counts.applied += r.frames_applied;
-  current_stream_ = nullptr;
+  context.current_stream = nullptr;
+  current_context_ = nullptr;
   r.applied_seq = pool_->last_seq(stream);
   if (r.frames_applied > 0 || !r.rejected.empty()) Publish(stream);
   if (keep_history && r.frames_applied > 0) {
     absl::MutexLock lock(&history_mu_);
     StreamHistory* h = history_[stream].get();
-    for (const PendingPoint& p : pending_points_) h->AddVerified(p.question, p.point);
+    for (const auto& p : context.pending_points) h->AddVerified(p.question, p.point);
   }
   if (m != nullptr) {
     m->FramesApplied(static_cast<double>(r.frames_applied));

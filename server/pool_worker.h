@@ -61,6 +61,12 @@ class PoolWorker {
     // refused at Submit with RESOURCE_EXHAUSTED (refusal reason "rate_limited").
     // 0: no limit.
     double max_stream_frames_per_second = 0;
+    // Threads that apply batches of DIFFERENT streams at once (the writer and
+    // writer_threads - 1 helpers, started with the first such group), for pools whose
+    // streams learn independently (Pool::supports_concurrent_streams). A stream's
+    // batches still apply one at a time and in order; spec changes, checkpoints and a
+    // stream's first batch run alone. 1: one writer thread.
+    size_t writer_threads = 1;
   };
 
   // The outcome of one batch.
@@ -164,6 +170,8 @@ class PoolWorker {
 
   // Batches and spec changes waiting for the writer.
   size_t queue_depth() const { return queue_depth_.load(std::memory_order_relaxed); }
+  // Batches applied beside others of different streams (Options::writer_threads).
+  uint64_t concurrent_batches() const { return concurrent_batches_.load(); }
 
  private:
   struct Task {
@@ -176,8 +184,37 @@ class PoolWorker {
   // Queues a spec change or capture and waits for it.
   void RunBlocking(Task task, bool* done);
 
+  // What one applying thread uses: scratch, and the verified points of its current batch.
+  struct ApplyContext {
+    std::unique_ptr<Pool::Workspace> workspace;
+    std::vector<double> values;
+    v1::StreamPredictions sample_scratch;  // progress samples (reused: no allocation)
+    // Verified points gathered during a batch, moved into `history_` after it.
+    struct PendingPoint {
+      size_t question;
+      StreamHistory::Verified point;
+    };
+    std::vector<PendingPoint> pending_points;
+    const std::string* current_stream = nullptr;
+  };
+  // A helper thread of the writer. `task` (null when idle) and `stop` are guarded by the
+  // worker's helpers_mu_.
+  struct Helper {
+    ApplyContext context;
+    Task* task = nullptr;
+    bool stop = false;
+    std::thread thread;
+  };
+  // The context of the batch this thread is applying, for the verification sink.
+  static thread_local ApplyContext* current_context_;
+
   void Run();
-  void ApplyTask(Task& task);
+  // Pops the next task, and with it the batch tasks right behind it that may apply at
+  // the same time (see Options::writer_threads) into `group`. Empty when stopping.
+  void NextGroup(std::vector<Task>* group);
+  void RunGroup(std::vector<Task>& group);
+  void HelperLoop(Helper* h);
+  void ApplyTask(Task& task, ApplyContext& context);
   void ReplaceTask(Task& task);
   void Publish(const std::string& stream);
   void InstallSink();
@@ -217,27 +254,27 @@ class PoolWorker {
     uint64_t applied = 0;
     uint64_t rejected = 0;
   };
+  // Entries are added only by the writer between groups (for a group's streams before
+  // it starts), so the threads of a group only look theirs up.
   absl::flat_hash_map<std::string, StreamCounts> counts_;
-  // Verified points gathered during a batch, moved into `history_` after it.
-  struct PendingPoint {
-    size_t question;
-    StreamHistory::Verified point;
-  };
-  std::vector<PendingPoint> pending_points_;
-  const std::string* current_stream_ = nullptr;
 
   mutable absl::Mutex history_mu_;
   absl::flat_hash_map<std::string, std::unique_ptr<StreamHistory>> history_
       ABSL_GUARDED_BY(history_mu_);
 
-  uint64_t last_lsn_ = 0;  // writer thread
+  std::atomic<uint64_t> last_lsn_{0};  // the highest LSN this pool appended
   StateEstimate estimate_;  // writer thread: the current spec's state sizes
   std::atomic<int64_t> pending_durable_{0};  // batch callbacks waiting for the log
   mutable absl::Mutex durable_mu_;
   absl::flat_hash_map<std::string, uint64_t> durable_seq_ ABSL_GUARDED_BY(durable_mu_);
 
-  std::vector<double> values_;
-  v1::StreamPredictions sample_scratch_;  // progress samples (reused: no allocation)
+  ApplyContext writer_context_;  // the writer thread's
+  std::vector<Task> group_;      // writer thread: the tasks being applied
+  // Helpers (Options::writer_threads - 1), started with the first group of two or more.
+  absl::Mutex helpers_mu_;
+  std::vector<std::unique_ptr<Helper>> helpers_;  // the vector: writer thread only
+  size_t helpers_busy_ ABSL_GUARDED_BY(helpers_mu_) = 0;
+  std::atomic<uint64_t> concurrent_batches_{0};
   std::thread thread_;
 };
 
