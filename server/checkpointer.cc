@@ -7,6 +7,7 @@
 #include "absl/strings/str_format.h"
 #include "absl/time/clock.h"
 #include "server/state_dir.h"
+#include "server/thread_priority.h"
 
 namespace bellwether::server {
 
@@ -16,7 +17,10 @@ Checkpointer::Checkpointer(PoolRegistry* registry, Wal* wal,
     : registry_(registry), wal_(wal), frames_applied_(frames_applied), options_(std::move(options)) {
   previous_start_lsn_ = loaded_start_lsn;
   frames_at_last_ = frames_applied_->load();
-  thread_ = std::thread([this] { Loop(); });
+  thread_ = std::thread([this] {
+    LowerThisThreadsPriority(kBackgroundNice);  // writing a checkpoint is background work
+    Loop();
+  });
 }
 
 Checkpointer::~Checkpointer() {

@@ -33,6 +33,7 @@
 #include <fstream>
 #include <sstream>
 #include "server/checkpointer.h"
+#include "server/thread_priority.h"
 #include "server/http_auth.h"
 #include "server/state_dir.h"
 #include "server/wal.h"
@@ -304,6 +305,7 @@ int Main(int argc, char** argv) {
       absl::GetFlag(FLAGS_writer_threads) > 0
           ? static_cast<size_t>(std::min(absl::GetFlag(FLAGS_writer_threads), 64))
           : std::clamp<size_t>(std::thread::hardware_concurrency(), 1, 8);
+  worker_options.applier_nice = bws::kBackgroundNice;
   std::atomic<uint64_t> frames_applied{0};
   worker_options.frames_applied_total = &frames_applied;
   std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it

@@ -7,6 +7,7 @@
 #include "absl/strings/match.h"
 #include "absl/strings/str_cat.h"
 #include "absl/time/clock.h"
+#include "server/thread_priority.h"
 
 namespace bellwether::server {
 
@@ -30,6 +31,7 @@ std::string RejectionReason(absl::string_view message) {
 
 thread_local PoolWorker::ApplyContext* PoolWorker::current_context_ = nullptr;
 
+
 PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation,
                        uint64_t last_lsn)
     : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {
@@ -42,7 +44,10 @@ PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t gen
     Publish(stream);
   }
   InstallSink();
-  thread_ = std::thread([this] { Run(); });
+  thread_ = std::thread([this] {
+    LowerThisThreadsPriority(options_.applier_nice);
+    Run();
+  });
 }
 
 PoolWorker::~PoolWorker() {
@@ -341,6 +346,7 @@ void PoolWorker::RunGroup(std::vector<Task>& group) {
 }
 
 void PoolWorker::HelperLoop(Helper* h) {
+  LowerThisThreadsPriority(options_.applier_nice);
   while (true) {
     Task* task;
     {

@@ -67,6 +67,10 @@ class PoolWorker {
     // batches still apply one at a time and in order; spec changes, checkpoints and a
     // stream's first batch run alone. 1: one writer thread.
     size_t writer_threads = 1;
+    // Nice value added to the writer and helper threads (0: none; the daemon uses
+    // kBackgroundNice, server/thread_priority.h), so that RPC threads answering Predict
+    // run first when the cores are busy learning.
+    int applier_nice = 0;
   };
 
   // The outcome of one batch.
