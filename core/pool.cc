@@ -717,8 +717,9 @@ namespace {
 
 constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
 // 2: per-stream frames_applied. 3: verifiers hold returns as differences of running
-// sums. 4: verifiers keep their window's sums. (Versions 2 and 3 are still read.)
-constexpr uint32_t kPoolStateVersion = 4;
+// sums. 4: verifiers keep their window's sums. 5: a block's restore point as the rows
+// that differ from its weights. (Versions 2 to 4 are still read.)
+constexpr uint32_t kPoolStateVersion = 5;
 constexpr uint32_t kOldestPoolStateVersion = 2;
 
 void SaveSparse(StateWriter& w, const SparseFeatures& x) {

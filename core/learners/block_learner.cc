@@ -912,10 +912,21 @@ bool LoadCounters(StateReader& r, QuestionCounters* c) {
 void BlockParams::SaveState(StateWriter& w) const {
   w.Put(rows_);
   w.Put(cols_);
-  for (const std::vector<float>* v :
-       {&w_, &aux_, &alpha_, &ss_h_, &ss_v_, &good_w_, &rupee_h_, &rupee_u_, &initial_alpha_}) {
-    w.PutVector(*v);
+  for (const std::vector<float>* v : {&w_, &aux_, &alpha_, &ss_h_, &ss_v_}) w.PutVector(*v);
+  // The restore point differs from the weights only in the rows written since the last
+  // snapshot, when they are tracked: those rows alone (state version 5), which halves a
+  // per-stream checkpoint. Else all of it.
+  if (all_dirty_) {
+    w.Put<uint8_t>(0);
+    w.PutVector(good_w_);
+  } else {
+    w.Put<uint8_t>(1);
+    w.PutVector(dirty_rows_);
+    for (uint32_t r : dirty_rows_) {
+      for (uint32_t q = 0; q < cols_; ++q) w.Put(good_w_[static_cast<size_t>(r) * cols_ + q]);
+    }
   }
+  for (const std::vector<float>* v : {&rupee_h_, &rupee_u_, &initial_alpha_}) w.PutVector(*v);
   w.Put(rupee_scale_);
   w.PutVector(rupee_dot_);
   w.Put(updates_since_snapshot_);
@@ -929,8 +940,36 @@ bool BlockParams::LoadState(StateReader& r) {
   uint32_t rows = 0, cols = 0;
   if (!r.Get(&rows) || !r.Get(&cols)) return false;
   if (rows != rows_ || cols != cols_) return r.Fail("block shape differs from the spec's");
-  for (std::vector<float>* v :
-       {&w_, &aux_, &alpha_, &ss_h_, &ss_v_, &good_w_, &rupee_h_, &rupee_u_, &initial_alpha_}) {
+  for (std::vector<float>* v : {&w_, &aux_, &alpha_, &ss_h_, &ss_v_}) {
+    if (!r.GetVector(v, v->size())) return false;
+  }
+  std::fill(dirty_bits_.begin(), dirty_bits_.end(), uint64_t{0});
+  dirty_rows_.clear();
+  all_dirty_ = true;
+  uint8_t sparse = 0;
+  if (r.version() >= 5 && !r.Get(&sparse)) return false;
+  if (sparse > 1) return r.Fail("restore point: unknown layout");
+  if (sparse == 0) {
+    if (!r.GetVector(&good_w_, good_w_.size())) return false;
+  } else {
+    // The weights, with the listed rows' own values; those rows stay marked as written.
+    std::vector<uint32_t> listed;
+    if (!r.GetVector(&listed) || listed.size() > DirtyListCapacity(rows_)) {
+      return r.Fail("restore point: row list");
+    }
+    std::copy(w_.begin(), w_.end(), good_w_.begin());
+    all_dirty_ = false;
+    for (uint32_t row : listed) {
+      if (row >= rows_ || (dirty_bits_[row >> 6] >> (row & 63) & 1) != 0) {
+        return r.Fail("restore point: row out of range or repeated");
+      }
+      for (uint32_t q = 0; q < cols_; ++q) {
+        if (!r.Get(&good_w_[static_cast<size_t>(row) * cols_ + q])) return false;
+      }
+      MarkDirty(row);
+    }
+  }
+  for (std::vector<float>* v : {&rupee_h_, &rupee_u_, &initial_alpha_}) {
     if (!r.GetVector(v, v->size())) return false;
   }
   uint8_t implausible = 0;
@@ -940,7 +979,6 @@ bool BlockParams::LoadState(StateReader& r) {
     return false;
   }
   implausible_since_snapshot_ = implausible != 0;
-  MarkAllDirty();  // the loaded weights and restore point may differ anywhere
   for (QuestionCounters& c : counters_) {
     if (!LoadCounters(r, &c)) return false;
   }

@@ -154,7 +154,7 @@ class BlockParams {
   std::vector<float> ss_v_;   // AUTOSTEP: v_i
   std::vector<float> good_w_;  // divergence guard: the last weights known to be sound
   // Rows that may differ from good_w_: a bit per row and their list (up to
-  // DirtyListCapacity), or all of them. Not saved: a loaded block starts with every row dirty.
+  // DirtyListCapacity), or all of them. Saved with the restore point (state version 5).
   std::vector<uint64_t> dirty_bits_;
   std::vector<uint32_t> dirty_rows_;
   bool all_dirty_ = true;
