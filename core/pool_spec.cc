@@ -900,7 +900,7 @@ StateEstimate EstimateState(const CompiledPoolSpec& spec) {
       d *= q.gamma;
       ++horizon;
     }
-    e.per_stream_bytes += (horizon + 1) * 64 + spec.verify_window * 24;
+    e.per_stream_bytes += (horizon + 1) * 64 + spec.verify_window * 32;
   }
   if (spec.pooled) {
     e.shared_bytes += blocks;

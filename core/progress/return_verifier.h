@@ -113,7 +113,9 @@ class ReturnVerifier {
     uint64_t seq;
     int64_t held_at;   // step_ when held
   };
-  struct Verified {
+  // Padded to 32 bytes so an entry never straddles two cache lines (Observe prefetches
+  // the one it overwrites next).
+  struct alignas(32) Verified {
     double error;
     double realized;
     double weight;
