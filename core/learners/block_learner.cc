@@ -237,10 +237,8 @@ LazyBlockTd& BlockLearner::LazyKernel(BlockParams& p, BlockTraceState& state) {
     auto made = LazyBlockTd::CreateOver(o, p.w_.data(), p.cols());
     // The options are valid by construction (rows and columns of a compiled block).
     state.lazy = *std::move(made);
-    const std::vector<uint32_t>& active = state.trace.active();
-    trace_values_.resize(active.size());
-    for (size_t i = 0; i < active.size(); ++i) trace_values_[i] = state.trace.value(active[i]);
-    state.lazy->SetTrace(active, trace_values_).IgnoreError();  // rows are in range
+    // Rows are in range and distinct.
+    state.lazy->SetTrace(state.trace.active(), state.trace.values()).IgnoreError();
     state.trace.Clear();
   }
   return *state.lazy;
@@ -473,8 +471,9 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
         a2[q] = static_cast<float>(dscratch_[q] * dutch_alpha * dv);
         if (dscratch_[q] != 0.0) state.v_old[q] = static_cast<double>(v_next_[q]);
       }
-      for (uint32_t r : rows) {
-        const float er = e.value(r);
+      for (size_t i = 0; i < rows.size(); ++i) {
+        const uint32_t r = rows[i];
+        const float er = e.values()[i];
         float* __restrict w = p.row(r);
         for (uint32_t q = 0; q < nq; ++q) w[q] += er * a1[q];
       }
@@ -490,8 +489,9 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
       float* bd = scratch_.data() + 3 * nq;
       std::fill(eh, eh + nq, 0.0f);
       std::fill(hx, hx + nq, 0.0f);
-      for (uint32_t r : rows) {
-        const float er = e.value(r);
+      for (size_t i = 0; i < rows.size(); ++i) {
+        const uint32_t r = rows[i];
+        const float er = e.values()[i];
         const float* h = &p.aux_[static_cast<size_t>(r) * nq];
         for (uint32_t q = 0; q < nq; ++q) eh[q] += er * h[q];
       }
@@ -507,8 +507,9 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
         bd[q] = static_cast<float>(s * cq.secondary_step_size);
       }
       const float corr = static_cast<float>(gamma_next * (1.0 - spec.lambda));
-      for (uint32_t r : rows) {
-        const float er = e.value(r);
+      for (size_t i = 0; i < rows.size(); ++i) {
+        const uint32_t r = rows[i];
+        const float er = e.values()[i];
         float* __restrict w = p.row(r);
         float* __restrict h = &p.aux_[static_cast<size_t>(r) * nq];
         for (uint32_t q = 0; q < nq; ++q) {
@@ -557,9 +558,13 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
         ad[q] = static_cast<float>(dscratch_[q] * cq.step_size * p.counters_[q].step_scale /
                                    norm_sq * static_cast<double>(delta_[q]));
       }
-      for (uint32_t r : rows) {
-        const float er = e.value(r);
-        float* __restrict w = p.row(r);
+      // The trace's rows are scattered over the table: fetch a few ahead.
+      constexpr size_t kAhead = 8;
+      const std::vector<float>& values = e.values();
+      for (size_t i = 0; i < rows.size(); ++i) {
+        if (i + kAhead < rows.size()) __builtin_prefetch(p.row(rows[i + kAhead]), 1, 3);
+        const float er = values[i];
+        float* __restrict w = p.row(rows[i]);
         for (uint32_t q = 0; q < nq; ++q) w[q] += er * ad[q];
       }
     }
@@ -572,9 +577,17 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
     if (lazy != nullptr) {
       e_sq = lazy->TraceNormSq();
     } else {
-      for (uint32_t r : e.active()) {
-        e_sq += static_cast<double>(e.value(r)) * static_cast<double>(e.value(r));
+      // Four running sums: one would wait on each add (the trace has hundreds of entries).
+      const std::vector<float>& ev = e.values();
+      double part[4] = {0, 0, 0, 0};
+      size_t i = 0;
+      for (; i + 4 <= ev.size(); i += 4) {
+        for (size_t k = 0; k < 4; ++k) {
+          part[k] += static_cast<double>(ev[i + k]) * static_cast<double>(ev[i + k]);
+        }
       }
+      for (; i < ev.size(); ++i) part[0] += static_cast<double>(ev[i]) * static_cast<double>(ev[i]);
+      e_sq = (part[0] + part[1]) + (part[2] + part[3]);
     }
     const double e_norm = std::sqrt(e_sq);
     const bool per_weight = UsesPerWeightSteps(spec.step_rule) &&
@@ -647,8 +660,9 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
   if (spec.step_rule == StepRuleKind::kAutostep) {
     const float inv_tau = 1.0f / kAutostepTau;
     // Pass 1: adapt alpha_i, accumulate the effective step M per question.
-    for (uint32_t r : rows) {
-      const float er = e.value(r), xr = x_dense_[r], xnr = xn_dense_[r];
+    for (size_t i = 0; i < rows.size(); ++i) {
+      const uint32_t r = rows[i];
+      const float er = e.values()[i], xr = x_dense_[r], xnr = xn_dense_[r];
       const float dx = xr - gamma_next * xnr;
       const size_t base = static_cast<size_t>(r) * nq;
       float* __restrict alpha = &p.alpha_[base];
@@ -672,8 +686,9 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
     // A skipped question's sum is 0, so its factor is 1: its alpha is left as it was.
     for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
     // Pass 2: normalize, update weights and h.
-    for (uint32_t r : rows) {
-      const float er = e.value(r), xr = x_dense_[r];
+    for (size_t i = 0; i < rows.size(); ++i) {
+      const uint32_t r = rows[i];
+      const float er = e.values()[i], xr = x_dense_[r];
       const size_t base = static_cast<size_t>(r) * nq;
       float* __restrict alpha = &p.alpha_[base];
       float* __restrict h = &p.ss_h_[base];
@@ -713,8 +728,9 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
       msum[q] = alpha[q] / std::max(msum[q], 1.0f) * delta[q];
     }
     // Pass 2: w_i += (alpha / o_i / M) delta e_i over the trace.
-    for (uint32_t r : rows) {
-      const float er = e.value(r);
+    for (size_t i = 0; i < rows.size(); ++i) {
+      const uint32_t r = rows[i];
+      const float er = e.values()[i];
       const size_t base = static_cast<size_t>(r) * nq;
       const float* __restrict o = &p.alpha_[base];
       float* __restrict w = &p.w_[base];
@@ -726,8 +742,9 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
       }
     }
   } else {  // TIDBD
-    for (uint32_t r : rows) {
-      const float er = e.value(r), xr = x_dense_[r];
+    for (size_t i = 0; i < rows.size(); ++i) {
+      const uint32_t r = rows[i];
+      const float er = e.values()[i], xr = x_dense_[r];
       const size_t base = static_cast<size_t>(r) * nq;
       float* __restrict beta = &p.alpha_[base];
       float* __restrict h = &p.ss_h_[base];
@@ -767,8 +784,9 @@ void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, dou
     const float* h = &p.rupee_h_[static_cast<size_t>(x.index[k] * stride + off) * nq];
     for (uint32_t q = 0; q < nq; ++q) hx[q] += x.value[k] * h[q];
   }
-  for (uint32_t r : e.active()) {
-    const float er = e.value(r);
+  for (size_t i = 0; i < e.active().size(); ++i) {
+    const uint32_t r = e.active()[i];
+    const float er = e.values()[i];
     float* __restrict h = &p.rupee_h_[static_cast<size_t>(r) * nq];
     float* __restrict u = &p.rupee_u_[static_cast<size_t>(r) * nq];
     for (uint32_t q = 0; q < nq; ++q) {

@@ -270,7 +270,6 @@ class BlockLearner {
   std::vector<float> wsq_f_;
   std::vector<float> x_scaled_;  // rho x for the lazy kernel
   std::vector<uint32_t> trace_rows_;
-  std::vector<float> trace_values_;
   std::vector<float> x_dense_, xn_dense_;  // feature values by row for the current step
 };
 
