@@ -419,6 +419,15 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame, Work
   ComputeClockSignals(frame.time_kind, frame.time_micros, spec_.time_zone,
                       absl::MakeSpan(ws.extended).subspan(spec_.signal_names.size()));
   if (spec_.recipe->Encode(ws.extended, &normalizer_, &ws.next_x) > 0) ++s.feature_gap_frames;
+  // Every block reads the new frame's rows of its weights: start fetching them all now,
+  // so the misses overlap instead of coming one block at a time.
+  if (!spec_.pooled) {
+    for (size_t bi = 0; bi < spec_.blocks.size(); ++bi) {
+      if (spec_.blocks[bi].action_valued) continue;
+      const BlockParams& params = s.own_params[bi];
+      for (uint32_t j : ws.next_x.index) __builtin_prefetch(params.row(j), 0, 3);
+    }
+  }
   const std::optional<int64_t> now = AbsoluteTime(frame);
 
   if (frame.restart) {
