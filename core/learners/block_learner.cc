@@ -31,6 +31,16 @@ constexpr size_t kLazyMinQuestions = 32;
 // arrays of the row this many entries ahead.
 constexpr size_t kPrefetchAhead = 8;
 
+// Prefetches, for writing, row rows[i + kPrefetchAhead] of each row-major array (`cols`
+// floats per row), if there is such an entry.
+template <typename... Arrays>
+void PrefetchRowAhead(const std::vector<uint32_t>& rows, size_t i, uint32_t cols,
+                      Arrays*... arrays) {
+  if (i + kPrefetchAhead >= rows.size()) return;
+  const size_t at = static_cast<size_t>(rows[i + kPrefetchAhead]) * cols;
+  (__builtin_prefetch(arrays + at, 1, 3), ...);
+}
+
 bool UsesPerWeightSteps(StepRuleKind r) {
   return r == StepRuleKind::kAutostep || r == StepRuleKind::kTidbd ||
          r == StepRuleKind::kSettling;
@@ -563,9 +573,7 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
       }
       const std::vector<float>& values = e.values();
       for (size_t i = 0; i < rows.size(); ++i) {
-        if (i + kPrefetchAhead < rows.size()) {
-          __builtin_prefetch(p.row(rows[i + kPrefetchAhead]), 1, 3);
-        }
+        PrefetchRowAhead(rows, i, nq, p.w_.data());
         const float er = values[i];
         float* __restrict w = p.row(rows[i]);
         for (uint32_t q = 0; q < nq; ++q) w[q] += er * ad[q];
@@ -664,12 +672,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
     const float inv_tau = 1.0f / kAutostepTau;
     // Pass 1: adapt alpha_i, accumulate the effective step M per question.
     for (size_t i = 0; i < rows.size(); ++i) {
-      if (i + kPrefetchAhead < rows.size()) {
-        const size_t ahead = static_cast<size_t>(rows[i + kPrefetchAhead]) * nq;
-        __builtin_prefetch(&p.alpha_[ahead], 1, 3);
-        __builtin_prefetch(&p.ss_h_[ahead], 0, 3);
-        __builtin_prefetch(&p.ss_v_[ahead], 1, 3);
-      }
+      PrefetchRowAhead(rows, i, nq, p.alpha_.data(), p.ss_h_.data(), p.ss_v_.data());
       const uint32_t r = rows[i];
       const float er = e.values()[i], xr = x_dense_[r], xnr = xn_dense_[r];
       const float dx = xr - gamma_next * xnr;
@@ -696,9 +699,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
     for (uint32_t q = 0; q < nq; ++q) msum[q] = 1.0f / std::max(msum[q], 1.0f);
     // Pass 2: normalize, update weights and h.
     for (size_t i = 0; i < rows.size(); ++i) {
-      if (i + kPrefetchAhead < rows.size()) {
-        __builtin_prefetch(&p.w_[static_cast<size_t>(rows[i + kPrefetchAhead]) * nq], 1, 3);
-      }
+      PrefetchRowAhead(rows, i, nq, p.w_.data());
       const uint32_t r = rows[i];
       const float er = e.values()[i], xr = x_dense_[r];
       const size_t base = static_cast<size_t>(r) * nq;
@@ -741,11 +742,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
     }
     // Pass 2: w_i += (alpha / o_i / M) delta e_i over the trace.
     for (size_t i = 0; i < rows.size(); ++i) {
-      if (i + kPrefetchAhead < rows.size()) {
-        const size_t ahead = static_cast<size_t>(rows[i + kPrefetchAhead]) * nq;
-        __builtin_prefetch(&p.alpha_[ahead], 0, 3);
-        __builtin_prefetch(&p.w_[ahead], 1, 3);
-      }
+      PrefetchRowAhead(rows, i, nq, p.alpha_.data(), p.w_.data());
       const uint32_t r = rows[i];
       const float er = e.values()[i];
       const size_t base = static_cast<size_t>(r) * nq;
@@ -760,12 +757,7 @@ void BlockLearner::ApplyStepRule(const BlockSpec& spec,
     }
   } else {  // TIDBD
     for (size_t i = 0; i < rows.size(); ++i) {
-      if (i + kPrefetchAhead < rows.size()) {
-        const size_t ahead = static_cast<size_t>(rows[i + kPrefetchAhead]) * nq;
-        __builtin_prefetch(&p.alpha_[ahead], 1, 3);
-        __builtin_prefetch(&p.ss_h_[ahead], 1, 3);
-        __builtin_prefetch(&p.w_[ahead], 1, 3);
-      }
+      PrefetchRowAhead(rows, i, nq, p.alpha_.data(), p.ss_h_.data(), p.w_.data());
       const uint32_t r = rows[i];
       const float er = e.values()[i], xr = x_dense_[r];
       const size_t base = static_cast<size_t>(r) * nq;
@@ -809,11 +801,7 @@ void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, dou
   }
   const std::vector<uint32_t>& rows = e.active();
   for (size_t i = 0; i < rows.size(); ++i) {
-    if (i + kPrefetchAhead < rows.size()) {
-      const size_t ahead = static_cast<size_t>(rows[i + kPrefetchAhead]) * nq;
-      __builtin_prefetch(&p.rupee_h_[ahead], 1, 3);
-      __builtin_prefetch(&p.rupee_u_[ahead], 1, 3);
-    }
+    PrefetchRowAhead(rows, i, nq, p.rupee_h_.data(), p.rupee_u_.data());
     const uint32_t r = rows[i];
     const float er = e.values()[i];
     float* __restrict h = &p.rupee_h_[static_cast<size_t>(r) * nq];
