@@ -68,8 +68,8 @@ ABSL_FLAG(int32_t, history_streams, 16,
 ABSL_FLAG(int32_t, history_points, 360, "Points per question in each history ring");
 ABSL_FLAG(int32_t, writer_threads, 0,
           "Threads per pool applying batches of different streams at once (pools whose streams "
-          "learn independently: per-stream, no raw inputs); 0: one per hardware thread, at "
-          "most 8; 1: a single writer");
+          "learn independently: per-stream, no raw inputs); 0: one per hardware thread but one "
+          "(left for RPCs), at least 1, at most 8; 1: a single writer");
 ABSL_FLAG(int32_t, metrics_max_questions, 200,
           "Per-question metric series for at most this many (pool, question) pairs; beyond "
           "it, pool-level aggregates only (bounds label cardinality)");
@@ -304,7 +304,8 @@ int Main(int argc, char** argv) {
   worker_options.writer_threads =
       absl::GetFlag(FLAGS_writer_threads) > 0
           ? static_cast<size_t>(std::min(absl::GetFlag(FLAGS_writer_threads), 64))
-          : std::clamp<size_t>(std::thread::hardware_concurrency(), 1, 8);
+          // Common practice: keep a core for the RPC threads, or Predict waits behind learning.
+          : std::clamp<size_t>(std::thread::hardware_concurrency(), 2, 9) - 1;
   worker_options.applier_nice = bws::kBackgroundNice;
   std::atomic<uint64_t> frames_applied{0};
   worker_options.frames_applied_total = &frames_applied;
