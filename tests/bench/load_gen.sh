@@ -147,6 +147,7 @@ if [[ $soak == 1 ]]; then
     --warmup-seconds "$warmup" --sample-seconds 10 --soak-ignore-seconds 60
   load_row soak "soak ${soak_seconds} s"
   row "soak: RSS after the first $(get soak soak.ignored_s) s" "first $(getf soak soak.first_mib 1), last $(getf soak soak.last_mib 1), min $(getf soak soak.min_mib 1), max $(getf soak soak.max_mib 1) MiB; drift $(getf soak soak.drift_pct 2) %, spread $(getf soak soak.spread_pct 2) %"
+  row "soak: per-minute RSS floor" "$(getf soak soak.floor_first_mib 1) -> $(getf soak soak.floor_last_mib 1) MiB; drift $(getf soak soak.floor_drift_pct 2) % (checkpoint transients left out)"
 fi
 
 echo "=== summary ($(awk -v a="$script_start" -v b="$EPOCHREALTIME" 'BEGIN { printf "%.0f", b - a }') s; $streams streams, batches of $batch, $seconds s measured per run after $warmup s; $(uptime | sed 's/.*load/load/'); command: $0) ==="
