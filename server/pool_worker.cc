@@ -31,7 +31,6 @@ std::string RejectionReason(absl::string_view message) {
 
 thread_local PoolWorker::ApplyContext* PoolWorker::current_context_ = nullptr;
 
-
 PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t generation,
                        uint64_t last_lsn)
     : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {

@@ -143,19 +143,18 @@ int Main(int argc, char** argv) {
   std::vector<Point> points;
   points.reserve(1 << 16);
   if (o.sink) {
-    (*pool)->SetVerificationSink([&points](const std::string&, size_t q, uint64_t seq, double p,
-                                           double r, bool truncated) {
-      if (points.size() == points.capacity()) points.clear();
-      points.push_back({q, seq, p, r, truncated});
-    });
+    (*pool)->SetVerificationSink(
+        [&points](const std::string&, size_t q, uint64_t seq, double p, double r, bool truncated) {
+          if (points.size() == points.capacity()) points.clear();
+          points.push_back({q, seq, p, r, truncated});
+        });
   }
   const auto& cs = (*pool)->spec();
   std::cout << absl::StrFormat(
       "engine_bench: pool %s, %d questions in %d blocks, %d features; %d streams, batches of "
       "%d, %d frames x %d repeats after %d warm-up frames%s\n",
-      (*pool)->name(), cs.questions.size(), cs.blocks.size(), cs.recipe->num_features(),
-      o.streams, o.batch, o.frames, o.repeats, o.warmup_frames,
-      o.sink ? "; verification sink on" : "");
+      (*pool)->name(), cs.questions.size(), cs.blocks.size(), cs.recipe->num_features(), o.streams,
+      o.batch, o.frames, o.repeats, o.warmup_frames, o.sink ? "; verification sink on" : "");
   Driver driver(**pool, o);
   if (!driver.Run(o.warmup_frames)) return 1;
   std::vector<double> us_per_frame;
