@@ -5,9 +5,11 @@
 #include <sys/wait.h>
 #include <unistd.h>
 
+#include <atomic>
 #include <cstdio>
 #include <fstream>
 #include <string>
+#include <thread>
 #include <vector>
 
 #include "absl/strings/match.h"
@@ -15,6 +17,7 @@
 #include "client/cli/campus_sim.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
+#include "core/pool.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
 #include "tests/integration/daemon_process.h"
@@ -108,6 +111,85 @@ TEST_F(DaemonTest, StreamedPredictionsEqualReplayOfTheSameRows) {
   // the grace period ends), so close ours first.
   client_.reset();
   EXPECT_EQ(daemon_.Stop(), 0) << "SIGTERM is a clean shutdown";
+}
+
+// Several appliers (--writer-threads 3) learning six streams fed at once from three
+// producer threads: every stream's answers must equal, to the last bit, those of the
+// engine applying that stream's rows in order on one thread (the real demand data, cut
+// into six streams).
+TEST(DaemonAppliers, StreamsFedAtOnceLearnWhatOneThreadLearns) {
+  Daemon daemon({"--writer-threads", "3"});
+  ASSERT_THAT(daemon.address(), HasSubstr("127.0.0.1:")) << "daemon did not start";
+  auto client = Client::Connect(daemon.address());
+  auto spec = ReadPoolSpecFile(GridSpecPath());
+  ASSERT_TRUE(spec.ok()) << spec.status();
+  ASSERT_TRUE(client->ApplyPool(*spec).ok());
+  auto reference = Pool::Create(*spec);
+  ASSERT_TRUE(reference.ok()) << reference.status();
+
+  constexpr int kStreams = 6, kRows = 300;
+  auto reader = CsvFrameReader::Open(DemandPath());
+  ASSERT_TRUE(reader.ok());
+  const std::vector<std::string> columns = (*reader)->signal_columns();
+  auto column_map = ColumnMap::Create((*reference)->spec().signal_names, columns);
+  ASSERT_TRUE(column_map.ok());
+  std::vector<std::vector<v1::Frame>> rows(kStreams);
+  std::vector<std::string> names;
+  std::vector<double> buffer;
+  FrameInput input;
+  for (int s = 0; s < kStreams; ++s) {
+    names.push_back("region-" + std::to_string(s));
+    for (int k = 0; k < kRows; ++k) {
+      v1::Frame f;
+      auto more = (*reader)->Next(&f);
+      ASSERT_TRUE(more.ok() && *more) << "the demand data has fewer rows than the test needs";
+      f.set_seq(static_cast<uint64_t>(k + 1));
+      ASSERT_TRUE(FrameFromProto(f, *column_map, &buffer, &input).ok());
+      ASSERT_TRUE((*reference)->Apply(names[s], input).ok());
+      rows[s].push_back(f);
+    }
+  }
+  // Each producer feeds two streams, alternating batches of 20 between them.
+  std::atomic<int> failures{0};
+  auto produce = [&](int first) {
+    std::vector<std::unique_ptr<IngestSession>> sessions;
+    for (int s = first; s < kStreams; s += 3) {
+      auto session = client->OpenIngest("grid", names[s], columns);
+      if (!session.ok()) {
+        ++failures;
+        return;
+      }
+      sessions.push_back(*std::move(session));
+    }
+    for (int k = 0; k < kRows; k += 20) {
+      for (size_t i = 0; i < sessions.size(); ++i) {
+        const int s = first + 3 * static_cast<int>(i);
+        v1::FrameBatch batch;
+        for (int j = k; j < k + 20 && j < kRows; ++j) *batch.add_frames() = rows[s][j];
+        auto ack = sessions[i]->Send(batch);
+        if (!ack.ok() || ack->rejected_size() > 0) ++failures;
+      }
+    }
+    for (auto& session : sessions) {
+      if (!session->Finish().ok()) ++failures;
+    }
+  };
+  std::vector<std::thread> producers;
+  for (int p = 0; p < 3; ++p) producers.emplace_back(produce, p);
+  for (std::thread& t : producers) t.join();
+  ASSERT_EQ(failures.load(), 0);
+  for (int s = 0; s < kStreams; ++s) {
+    auto p = client->Predict("grid", names[s]);
+    ASSERT_TRUE(p.ok()) << p.status();
+    EXPECT_EQ(p->as_of_seq(), static_cast<uint64_t>(kRows));
+    const auto want = (*reference)->predictions(names[s]);
+    ASSERT_EQ(static_cast<size_t>(p->predictions_size()), want.size());
+    for (size_t q = 0; q < want.size(); ++q) {
+      EXPECT_EQ(p->predictions(static_cast<int>(q)).value(), want[q]) << names[s];
+    }
+  }
+  client.reset();
+  EXPECT_EQ(daemon.Stop(), 0);
 }
 
 TEST_F(DaemonTest, BadInputIsInvalidArgumentNamingTheFieldAndChangesNothing) {
