@@ -117,7 +117,7 @@ class BlockParams {
     const uint64_t bit = uint64_t{1} << (r & 63);
     if ((word & bit) != 0) return;
     word |= bit;
-    if (dirty_rows_.size() == dirty_rows_.capacity()) {
+    if (dirty_rows_.size() >= DirtyListCapacity(rows_)) {  // reserved up to that
       all_dirty_ = true;  // past DirtyListCapacity a whole copy is about as cheap
       return;
     }
