@@ -39,7 +39,7 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
     const bool capped = step_ - h.held_at >= static_cast<int64_t>(horizon_);
     if (!done && !capped) break;
     Verify(h, Realized(h), wt_ == 0.0 ? 0.0 : wt_ / h.wt0, !done);
-    if (++held_start_ == cap) held_start_ = 0;  // no division on the per-frame path
+    held_start_ = RingAt(held_start_, 1, cap);
     --held_count_;
   }
   if (held_count_ == 0) {
@@ -53,14 +53,14 @@ void ReturnVerifier::Observe(double c, double continuation, double pi, double rh
   // one after it and overwrites the window's next slot: both written a horizon ago and
   // long out of cache (a pool's verifiers hold megabytes). Fetch them while the rest of
   // the frame runs.
-  __builtin_prefetch(&held_[held_start_ + 1 == cap ? 0 : held_start_ + 1], 0, 3);
+  __builtin_prefetch(&held_[RingAt(held_start_, 1, cap)], 0, 3);
   __builtin_prefetch(&window_[window_next_], 1, 3);
 }
 
 void ReturnVerifier::Rebase() {
   const size_t cap = held_.size();
-  for (size_t i = 0, at = held_start_; i < held_count_; ++i, at = at + 1 == cap ? 0 : at + 1) {
-    Held& h = held_[at];
+  for (size_t i = 0; i < held_count_; ++i) {
+    Held& h = held_[RingAt(held_start_, i, cap)];
     h.base = Realized(h);
     h.acc0 = 0;
     h.disc0 /= disc_;
@@ -86,12 +86,10 @@ void ReturnVerifier::Hold(double prediction, uint64_t seq) {
   if (held_count_ == cap) {  // cannot happen: Observe releases at the horizon
     const Held& h = held_[held_start_];
     Verify(h, Realized(h), wt_ / h.wt0, true);
-    held_start_ = (held_start_ + 1) % cap;
+    held_start_ = RingAt(held_start_, 1, cap);
     --held_count_;
   }
-  size_t at = held_start_ + held_count_;
-  if (at >= cap) at -= cap;
-  held_[at] =
+  held_[RingAt(held_start_, held_count_, cap)] =
       Held{prediction, 0.0, acc_, disc_, wt_, 1.0 / (disc_ * wt_), seq, step_};
   ++held_count_;
 }
@@ -103,7 +101,7 @@ void ReturnVerifier::Verify(const Held& h, double realized, double weight, bool 
   if (window_count_ == window_.size()) AddToSums(window_[window_next_], -1.0);
   window_[window_next_] = added;
   AddToSums(added, 1.0);
-  if (++window_next_ == window_.size()) window_next_ = 0;
+  window_next_ = RingAt(window_next_, 1, window_.size());
   window_count_ = std::min(window_count_ + 1, window_.size());
   if (window_next_ == 0) RecomputeSums();
   if (probability_) {
@@ -159,7 +157,7 @@ void ReturnVerifier::SaveState(StateWriter& w) const {
   w.Put(step_);
   const size_t cap = held_.size();
   for (size_t i = 0; i < held_count_; ++i) {
-    const Held& h = held_[(held_start_ + i) % cap];
+    const Held& h = held_[RingAt(held_start_, i, cap)];
     w.Put(h.prediction);
     w.Put(h.base);
     w.Put(h.acc0);
@@ -202,7 +200,7 @@ bool ReturnVerifier::LoadState(StateReader& r) {
     // frames make sums infinite and importance weights overflow; found by fuzzing, where
     // refusing them made a saved pool unloadable).
     for (size_t i = 0; i < count; ++i) {
-      Held& h = held_[(start + i) % cap];
+      Held& h = held_[RingAt(start, i, cap)];
       if (!r.Get(&h.prediction) || !r.Get(&h.base) || !r.Get(&h.acc0) || !r.Get(&h.disc0) ||
           !r.Get(&h.wt0) || !r.Get(&h.inv_scale) || !r.Get(&h.seq) || !r.Get(&h.held_at)) {
         return false;
@@ -216,7 +214,7 @@ bool ReturnVerifier::LoadState(StateReader& r) {
     wt_ = 1;
     step_ = 0;
     for (size_t i = 0; i < count; ++i) {
-      Held& h = held_[(start + i) % cap];
+      Held& h = held_[RingAt(start, i, cap)];
       double realized = 0, discount = 0, weight = 0;
       uint32_t steps = 0;
       if (!r.Get(&h.prediction) || !r.Get(&realized) || !r.Get(&discount) || !r.Get(&weight) ||

@@ -121,6 +121,12 @@ class ReturnVerifier {
     double weight;
   };
   double Realized(const Held& h) const { return h.base + h.inv_scale * (acc_ - h.acc0); }
+  // Index `i` places after `start` in a ring of `cap` (start, i < cap), without a
+  // division: the rings are stepped once per question per frame.
+  static size_t RingAt(size_t start, size_t i, size_t cap) {
+    const size_t at = start + i;
+    return at >= cap ? at - cap : at;
+  }
   // Folds every held prediction's return so far into its base; the sums restart.
   void Rebase();
   void Verify(const Held& h, double realized, double weight, bool truncated);
