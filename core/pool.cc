@@ -629,7 +629,7 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
   out->set_as_of_seq(s.last_seq);
   double norm_sq = 0;
   for (float v : s.prev_x.value) norm_sq += static_cast<double>(v) * static_cast<double>(v);
-  std::vector<uint32_t> rows;
+  std::vector<uint32_t> rows;  // action-valued blocks only (empty: no allocation)
   auto* predictions = out->mutable_predictions();
   const int visible = static_cast<int>(spec_.num_visible_questions);
   while (predictions->size() > visible) predictions->RemoveLast();
@@ -708,13 +708,20 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     p->set_label(pr->label());
     pr->set_behavior_estimated(spec_.estimate_behavior &&
                                (q.policy.kind != PolicyKind::kBehavior) && !block.action_valued);
-    rows.clear();
-    const uint32_t stride = block.action_valued ? num_actions_ : 1;
-    for (uint32_t j : s.prev_x.index) {
-      for (uint32_t a = 0; a < stride; ++a) rows.push_back(j * stride + a);
+    // The weight rows of the last frame's features: the features themselves for state
+    // values (no copy: the writer samples this every few frames), every action's row of
+    // each feature for action values.
+    absl::Span<const uint32_t> summary_rows = s.prev_x.index;
+    if (block.action_valued) {
+      rows.clear();
+      for (uint32_t j : s.prev_x.index) {
+        for (uint32_t a = 0; a < num_actions_; ++a) rows.push_back(j * num_actions_ + a);
+      }
+      summary_rows = rows;
     }
     double mean = 0, lo = 0, hi = 0;
-    params.StepSizeSummary(static_cast<uint32_t>(q.index_in_block), rows, norm_sq, &mean, &lo, &hi);
+    params.StepSizeSummary(static_cast<uint32_t>(q.index_in_block), summary_rows, norm_sq, &mean,
+                           &lo, &hi);
     pr->set_step_size_mean(mean);
     pr->set_step_size_min(lo);
     pr->set_step_size_max(hi);
