@@ -995,7 +995,7 @@ bool BlockParams::LoadState(StateReader& r) {
     std::copy(w_.begin(), w_.end(), good_w_.begin());
     all_dirty_ = false;
     for (uint32_t row : listed) {
-      if (row >= rows_ || (dirty_bits_[row >> 6] >> (row & 63) & 1) != 0) {
+      if (row >= rows_ || RowListed(row)) {
         return r.Fail("restore point: row out of range or repeated");
       }
       for (uint32_t q = 0; q < cols_; ++q) {

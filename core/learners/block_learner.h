@@ -112,11 +112,8 @@ class BlockParams {
   // the last one; whoever writes a weight row outside BlockLearner::Learn must call
   // MarkAllDirty() (the next snapshot then copies every row).
   void MarkDirty(uint32_t r) {
-    if (all_dirty_) return;
-    uint64_t& word = dirty_bits_[r >> 6];
-    const uint64_t bit = uint64_t{1} << (r & 63);
-    if ((word & bit) != 0) return;
-    word |= bit;
+    if (all_dirty_ || RowListed(r)) return;
+    dirty_bits_[r >> 6] |= uint64_t{1} << (r & 63);
     if (dirty_rows_.size() >= DirtyListCapacity(rows_)) {  // reserved up to that
       all_dirty_ = true;  // past DirtyListCapacity a whole copy is about as cheap
       return;
@@ -156,6 +153,7 @@ class BlockParams {
   // Rows that may differ from good_w_: a bit per row and their list (up to
   // DirtyListCapacity), or all of them. Saved with the restore point (state version 5).
   std::vector<uint64_t> dirty_bits_;
+  bool RowListed(uint32_t r) const { return (dirty_bits_[r >> 6] >> (r & 63) & 1) != 0; }
   std::vector<uint32_t> dirty_rows_;
   bool all_dirty_ = true;
   uint64_t snapshots_ = 0;
