@@ -33,9 +33,9 @@
 #include <fstream>
 #include <sstream>
 #include "server/checkpointer.h"
-#include "server/thread_priority.h"
 #include "server/http_auth.h"
 #include "server/state_dir.h"
+#include "server/thread_priority.h"
 #include "server/wal.h"
 #include <atomic>
 
