@@ -51,6 +51,7 @@ Pool::Workspace::Workspace(const CompiledPoolSpec& spec, uint32_t num_actions)
   trans_continuation.resize(nq);
   trans_pi.resize(nq);
   trans_rho.resize(nq);
+  group_values.resize(nq);
   pi_now.resize(num_actions);
   pi_next.resize(num_actions);
   q_values.resize(num_actions);
@@ -71,6 +72,7 @@ Pool::Pool(CompiledPoolSpec spec)
       num_actions_(static_cast<uint32_t>(std::max<size_t>(spec_.actions.size(), 1))),
       normalizer_(spec_.recipe->NewNormalizerState()),
       workspace_(spec_, num_actions_) {
+  FormVerifierGroups();
   if (spec_.pooled) {
     for (const BlockSpec& b : spec_.blocks) {
       pooled_params_.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
@@ -81,6 +83,66 @@ Pool::Pool(CompiledPoolSpec spec)
       const int t = spec_.questions[qi].successor;
       if (t >= 0) pooled_regression_[qi].assign(spec_.tables[static_cast<size_t>(t)].count, 0.0);
     }
+  }
+}
+
+namespace {
+
+VerificationMode VerificationModeOf(const CompiledQuestion& q) {
+  if (q.control || q.policy.kind == PolicyKind::kAction || q.policy.kind == PolicyKind::kGreedy) {
+    return VerificationMode::kOnTargetStretches;
+  }
+  if (q.policy.kind == PolicyKind::kDistribution) return VerificationMode::kImportanceWeighted;
+  return VerificationMode::kOnPolicy;
+}
+
+}  // namespace
+
+void Pool::FormVerifierGroups() {
+  verifier_slot_.resize(spec_.questions.size());
+  for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+    const CompiledQuestion& q = spec_.questions[qi];
+    // A successor question sees the transition its table's first component sees.
+    const size_t timing_block =
+        q.successor >= 0
+            ? spec_.questions[spec_.tables[static_cast<size_t>(q.successor)].first].block
+            : q.block;
+    const VerificationMode mode = VerificationModeOf(q);
+    const bool gpi = !q.gpi_tables.empty();
+    const bool probability =
+        q.cumulant.kind == CumulantKind::kIndicator && q.gamma == 1.0 && !q.terminate_when.empty();
+    size_t g = 0;
+    while (g < verifier_groups_.size() &&
+           !(verifier_groups_[g].timing_block == timing_block &&
+             verifier_groups_[g].gamma == q.gamma && verifier_groups_[g].mode == mode &&
+             verifier_groups_[g].gpi == gpi)) {
+      ++g;
+    }
+    if (g == verifier_groups_.size()) {
+      verifier_groups_.push_back(VerifierGroup{timing_block, q.gamma, mode, gpi, {}, {}});
+    }
+    verifier_slot_[qi] = {g, verifier_groups_[g].questions.size()};
+    verifier_groups_[g].questions.push_back(qi);
+    verifier_groups_[g].probability.push_back(probability);
+  }
+}
+
+void Pool::InstallSink(const std::string& name, StreamState& state) {
+  for (size_t g = 0; g < state.verifiers.size(); ++g) {
+    if (!sink_) {
+      state.verifiers[g].set_sink(nullptr);
+      continue;
+    }
+    state.verifiers[g].set_sink([this, name, &state, g](absl::Span<const VerifiedPoint> points) {
+      // The group's places become the spec's question indices.
+      const std::vector<size_t>& questions = verifier_groups_[g].questions;
+      state.sink_points.clear();
+      for (VerifiedPoint p : points) {
+        p.question = static_cast<uint32_t>(questions[p.question]);
+        state.sink_points.push_back(p);
+      }
+      sink_(name, state.sink_points);
+    });
   }
 }
 
@@ -160,7 +222,14 @@ absl::StatusOr<std::unique_ptr<Pool>> Pool::CreateFrom(const Pool& old, const v1
         s.regression_updates[n] = old_state->regression_updates[o];
       }
       s.greedy_actions[n] = old_state->greedy_actions[o];
-      s.verifiers[n] = old_state->verifiers[o];
+    }
+    // Verified-error state, question by question, in each new group's order (the first
+    // question adopted sets the group's timing).
+    for (size_t n = 0; n < from.size(); ++n) {
+      if (from[n] < 0) continue;
+      const auto [og, oslot] = old.verifier_slot_[static_cast<size_t>(from[n])];
+      const auto [ng, nslot] = pool->verifier_slot_[n];
+      s.verifiers[ng].Adopt(nslot, old_state->verifiers[og].Export(oslot));
     }
   }
   return pool;
@@ -180,26 +249,14 @@ Pool::StreamState& Pool::GetOrCreateStream(absl::string_view stream) {
     state->block_states.back().v_old.assign(b.questions.size(), 0.0);
     if (!spec_.pooled) state->own_params.emplace_back(b, spec_.questions, *spec_.recipe, num_actions_);
   }
-  for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
-    const CompiledQuestion& q = spec_.questions[qi];
-    VerificationMode mode = VerificationMode::kOnPolicy;
-    if (q.control || q.policy.kind == PolicyKind::kAction || q.policy.kind == PolicyKind::kGreedy) {
-      mode = VerificationMode::kOnTargetStretches;
-    } else if (q.policy.kind == PolicyKind::kDistribution) {
-      mode = VerificationMode::kImportanceWeighted;
-    }
-    const bool probability = q.cumulant.kind == CumulantKind::kIndicator && q.gamma == 1.0 &&
-                             !q.terminate_when.empty();
-    state->verifiers.emplace_back(q.gamma, spec_.verify_max_held, spec_.verify_window, mode,
-                                  probability);
-    if (sink_) {
-      std::string name(stream);
-      state->verifiers.back().set_sink(
-          [this, name, qi](uint64_t seq, double prediction, double realized, bool truncated) {
-            sink_(name, qi, seq, prediction, realized, truncated);
-          });
-    }
+  size_t widest = 0;
+  for (const VerifierGroup& g : verifier_groups_) {
+    state->verifiers.emplace_back(g.gamma, spec_.verify_max_held, spec_.verify_window, g.mode,
+                                  g.probability);
+    widest = std::max(widest, g.questions.size());
   }
+  state->sink_points.reserve(widest);
+  InstallSink(std::string(stream), *state);
   if (!spec_.pooled) {
     state->regression.resize(spec_.questions.size());
     state->regression_updates.assign(spec_.questions.size(), 0);
@@ -527,17 +584,23 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame, Work
 
   // Verified error: held predictions accumulate the transition's cumulant; off-policy
   // questions verify on the target's stretches or with importance weights (see
-  // ReturnVerifier).
-  for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
-    ReturnVerifier& verifier = s.verifiers[qi];
-    if (frame.restart || !spec_.questions[qi].gpi_tables.empty()) {
+  // ReturnVerifier). A group's questions share the continuation, pi and rho.
+  for (size_t g = 0; g < verifier_groups_.size(); ++g) {
+    const VerifierGroup& group = verifier_groups_[g];
+    ReturnVerifier& verifier = s.verifiers[g];
+    const size_t n = group.questions.size();
+    const auto values = absl::MakeSpan(ws.group_values.data(), n);
+    if (frame.restart || group.gpi) {
       // A GPI answer is about a policy the behavior does not follow: not verified.
       verifier.Interrupt();
     } else if (learn) {
-      verifier.Observe(ws.trans_cumulant[qi], ws.trans_continuation[qi], ws.trans_pi[qi],
-                       ws.trans_rho[qi]);
+      for (size_t i = 0; i < n; ++i) values[i] = ws.trans_cumulant[group.questions[i]];
+      const size_t first = group.questions[0];
+      verifier.Observe(values, ws.trans_continuation[first], ws.trans_pi[first],
+                       ws.trans_rho[first]);
     }
-    verifier.Hold(ws.next_answers[qi], frame.seq);
+    for (size_t i = 0; i < n; ++i) values[i] = ws.next_answers[group.questions[i]];
+    verifier.Hold(values, frame.seq);
   }
 
   std::swap(s.prev_x, ws.next_x);
@@ -592,15 +655,7 @@ const BlockParams* Pool::block_params(absl::string_view stream, size_t b) const 
 
 void Pool::SetVerificationSink(VerificationSink sink) {
   sink_ = std::move(sink);
-  for (auto& [name, state] : streams_) {
-    for (size_t qi = 0; qi < state->verifiers.size(); ++qi) {
-      std::string stream_name = name;
-      state->verifiers[qi].set_sink(
-          [this, stream_name, qi](uint64_t seq, double p, double r, bool truncated) {
-            sink_(stream_name, qi, seq, p, r, truncated);
-          });
-    }
-  }
+  for (auto& [name, state] : streams_) InstallSink(name, *state);
 }
 
 size_t Pool::verification_memory_bytes(absl::string_view stream) const {
@@ -645,7 +700,9 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     if ((q.control || !q.gpi_tables.empty()) && s.greedy_actions[qi] >= 0) {
       p->set_greedy_action(spec_.actions[static_cast<size_t>(s.greedy_actions[qi])]);
     }
-    const VerifiedErrorStats st = s.verifiers[qi].stats();
+    const auto [g, slot] = verifier_slot_[qi];
+    const ReturnVerifier& verifier = s.verifiers[g];
+    const VerifiedErrorStats st = verifier.stats(slot);
     v1::VerifiedError* ve = p->mutable_verified();
     ve->Clear();  // no sub-message to free: scalars, a string, repeated bins kept
     ve->set_count(st.count);
@@ -656,9 +713,9 @@ absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPrediction
     ve->set_truncated(st.truncated);
     ve->set_unverifiable(st.unverifiable);
     ve->set_effective_sample_size(st.effective_sample_size);
-    ve->set_memory_bytes(s.verifiers[qi].memory_bytes());
+    ve->set_memory_bytes(verifier.memory_bytes() / verifier.num_questions());
     p->set_error_band(st.count > 0 ? st.rmse : 0.0);
-    switch (s.verifiers[qi].mode()) {
+    switch (verifier.mode()) {
       case VerificationMode::kOnPolicy: ve->set_mode("on-policy"); break;
       case VerificationMode::kOnTargetStretches: ve->set_mode("on-target stretches"); break;
       case VerificationMode::kImportanceWeighted: ve->set_mode("importance-weighted"); break;
@@ -734,8 +791,9 @@ namespace {
 constexpr uint32_t kPoolStateMagic = 0x42575354;  // "BWST"
 // 2: per-stream frames_applied. 3: verifiers hold returns as differences of running
 // sums. 4: verifiers keep their window's sums. 5: a block's restore point as the rows
-// that differ from its weights. (Versions 2 to 4 are still read.)
-constexpr uint32_t kPoolStateVersion = 5;
+// that differ from its weights. 6: one verifier per group of questions sharing their
+// timing, instead of one per question. (Versions 2 to 5 are still read.)
+constexpr uint32_t kPoolStateVersion = 6;
 constexpr uint32_t kOldestPoolStateVersion = 2;
 
 void SaveSparse(StateWriter& w, const SparseFeatures& x) {
@@ -863,8 +921,21 @@ absl::Status Pool::RestoreState(absl::string_view state) {
     for (BlockParams& p : st.own_params) {
       if (!p.LoadState(r)) return r.status();
     }
-    for (ReturnVerifier& v : st.verifiers) {
-      if (!v.LoadState(r)) return r.status();
+    if (version >= 6) {
+      for (ReturnVerifier& v : st.verifiers) {
+        if (!v.LoadState(r)) return r.status();
+      }
+    } else {
+      // One verifier per question, in question order: each joins its group.
+      for (size_t qi = 0; qi < spec_.questions.size(); ++qi) {
+        const auto [g, slot] = verifier_slot_[qi];
+        ReturnVerifier& v = st.verifiers[g];
+        QuestionVerification q;
+        if (!ReturnVerifier::ReadLegacy(r, v.ring_capacity(), v.window_size(), &q)) {
+          return r.status();
+        }
+        v.Adopt(slot, q);
+      }
     }
     if (!r.GetVector(&st.behavior_counts, st.behavior_counts.size()) ||
         !r.Get(&st.feature_gap_frames) || !r.Get(&st.frames_applied)) {

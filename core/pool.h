@@ -61,6 +61,7 @@ class Pool {
     std::vector<double> cumulants;      // per question of the current block
     std::vector<double> block_answers;  // per question of the current block
     std::vector<double> trans_cumulant, trans_continuation, trans_pi, trans_rho;
+    std::vector<double> group_values;  // one verifier group's cumulants or answers
     std::vector<double> pi_now, pi_next, q_values;
     SparseFeatures behavior_cell;  // the coarse cell of the behavior estimate
   };
@@ -92,11 +93,12 @@ class Pool {
   absl::Span<const double> predictions(absl::string_view stream) const;
 
   // Receives every verified prediction of every stream (offline summaries, e.g. the
-  // CLI's replay --summary): stream, question index, the seq the prediction was made at,
-  // the prediction, the realized return, and whether the return was cut at the cap.
-  using VerificationSink = std::function<void(const std::string& stream, size_t question,
-                                              uint64_t seq, double prediction, double realized,
-                                              bool truncated)>;
+  // CLI's replay --summary; the daemon's history): the stream, then the points one
+  // verifier group verified in one step, each with its question's index in the spec's
+  // order, the seq the prediction was made at, the prediction, the realized return, and
+  // whether the return was cut at the cap.
+  using VerificationSink =
+      std::function<void(const std::string& stream, absl::Span<const VerifiedPoint> points)>;
   void SetVerificationSink(VerificationSink sink);
 
   // Bytes the verified-error bookkeeping holds for `stream` (fixed per stream).
@@ -130,7 +132,8 @@ class Pool {
     std::vector<int> greedy_actions;    // per question (control questions), -1 otherwise
     std::vector<BlockTraceState> block_states;  // per block
     std::vector<BlockParams> own_params;        // per block, per-stream learning only
-    std::vector<ReturnVerifier> verifiers;      // per question
+    std::vector<ReturnVerifier> verifiers;      // per verifier group
+    std::vector<VerifiedPoint> sink_points;     // the sink's, relabelled by question
     std::vector<uint32_t> behavior_counts;      // (cells + 1) x actions, when estimating
     uint64_t feature_gap_frames = 0;  // frames with a missing feature input
     uint64_t frames_applied = 0;
@@ -157,8 +160,26 @@ class Pool {
   void AnswerSuccessorQuestions(Workspace& ws, StreamState& s, const FrameInput& frame,
                                 const std::optional<int64_t>& now, bool learn);
 
+  // Questions verified together, by one ReturnVerifier per stream: those that see the
+  // same continuation, target probability and importance ratio every step (a block's
+  // questions, and the successor questions over the block's table) and share gamma and
+  // verification mode.
+  struct VerifierGroup {
+    size_t timing_block = 0;
+    double gamma = 0;
+    VerificationMode mode = VerificationMode::kOnPolicy;
+    bool gpi = false;  // answers about a policy the behavior does not follow: never verified
+    std::vector<size_t> questions;
+    std::vector<bool> probability;
+  };
+  void FormVerifierGroups();
+  void InstallSink(const std::string& name, StreamState& state);
+
   CompiledPoolSpec spec_;
   uint32_t num_actions_;
+  std::vector<VerifierGroup> verifier_groups_;
+  // Per question: its group and its place in the group.
+  std::vector<std::pair<size_t, size_t>> verifier_slot_;
   VerificationSink sink_;
   std::vector<BlockParams> pooled_params_;  // per block, pooled learning only
   std::vector<std::vector<double>> pooled_regression_;  // pooled: per question

@@ -78,14 +78,17 @@ std::shared_ptr<PoolWorker::Generation> PoolWorker::MakeGeneration(uint64_t id) 
 
 void PoolWorker::InstallSink() {
   // Called on whichever thread applies the batch: the points go to that thread's context.
-  pool_->SetVerificationSink([this](const std::string& stream, size_t question, uint64_t seq,
-                                    double prediction, double realized, bool truncated) {
-    ApplyContext* c = current_context_;
-    // Only streams that keep history, and only visible questions.
-    if (c == nullptr || c->current_stream == nullptr || stream != *c->current_stream) return;
-    if (question >= pool_->spec().num_visible_questions) return;
-    c->pending_points.push_back({question, {seq, prediction, realized, truncated}});
-  });
+  pool_->SetVerificationSink(
+      [this](const std::string& stream, absl::Span<const VerifiedPoint> points) {
+        ApplyContext* c = current_context_;
+        // Only streams that keep history, and only visible questions.
+        if (c == nullptr || c->current_stream == nullptr || stream != *c->current_stream) return;
+        const size_t visible = pool_->spec().num_visible_questions;
+        for (const VerifiedPoint& p : points) {
+          if (p.question >= visible) continue;
+          c->pending_points.push_back({p.question, {p.seq, p.prediction, p.realized, p.truncated}});
+        }
+      });
 }
 
 std::shared_ptr<const PoolWorker::Generation> PoolWorker::current() const {

@@ -30,10 +30,11 @@ ReplaySummary::Score Stats(const std::vector<double>& err, double realized_sd) {
 
 ReplaySummary::ReplaySummary(Pool& pool, uint64_t score_from_row)
     : pool_(pool), score_from_(score_from_row), verified_(pool.spec().questions.size()) {
-  pool_.SetVerificationSink(
-      [this](const std::string&, size_t q, uint64_t seq, double prediction, double realized, bool) {
-        verified_[q].push_back({seq, prediction, realized});
-      });
+  pool_.SetVerificationSink([this](const std::string&, absl::Span<const VerifiedPoint> points) {
+    for (const VerifiedPoint& p : points) {
+      verified_[p.question].push_back({p.seq, p.prediction, p.realized});
+    }
+  });
 }
 
 void ReplaySummary::OnRow(const v1::Frame& frame, absl::Span<const double> predictions) {

@@ -144,9 +144,11 @@ int Main(int argc, char** argv) {
   points.reserve(1 << 16);
   if (o.sink) {
     (*pool)->SetVerificationSink(
-        [&points](const std::string&, size_t q, uint64_t seq, double p, double r, bool truncated) {
-          if (points.size() == points.capacity()) points.clear();
-          points.push_back({q, seq, p, r, truncated});
+        [&points](const std::string&, absl::Span<const VerifiedPoint> verified) {
+          for (const VerifiedPoint& v : verified) {
+            if (points.size() == points.capacity()) points.clear();
+            points.push_back({v.question, v.seq, v.prediction, v.realized, v.truncated});
+          }
         });
   }
   const auto& cs = (*pool)->spec();
