@@ -670,6 +670,38 @@ BlockParams* Pool::mutable_block_params(absl::string_view stream, size_t b) {
   return const_cast<BlockParams*>(block_params(stream, b));
 }
 
+absl::Status Pool::SampleProgress(absl::string_view stream, absl::Span<ProgressSample> out) const {
+  auto it = streams_.find(stream);
+  if (it == streams_.end()) {
+    return absl::NotFoundError(
+        absl::StrCat("pool ", name(), ": stream '", stream, "' has sent no frames"));
+  }
+  const StreamState& s = *it->second;
+  const size_t n = std::min(out.size(), spec_.num_visible_questions);
+  for (size_t qi = 0; qi < n; ++qi) {
+    const CompiledQuestion& q = spec_.questions[qi];
+    const auto [g, slot] = verifier_slot_[qi];
+    const VerifiedErrorStats st = s.verifiers[g].stats(slot);
+    ProgressSample& p = out[qi];
+    p.verified_rmse = st.count > 0 ? st.rmse : 0.0;
+    if (q.successor >= 0) {
+      // As GetPredictions: the label of the table's first component, no TD figures.
+      const CompiledQuestion& first =
+          spec_.questions[spec_.tables[static_cast<size_t>(q.successor)].first];
+      const QuestionCounters& tc = ParamsFor(s, first.block).counters()[first.index_in_block];
+      p.td_error_rms = 0;
+      p.weight_change = 0;
+      p.label = tc.progress.Label(spec_.progress_decay);
+      continue;
+    }
+    const QuestionCounters& c = ParamsFor(s, q.block).counters()[q.index_in_block];
+    p.td_error_rms = c.progress.td_rms();
+    p.weight_change = c.progress.weight_change;
+    p.label = c.progress.Label(spec_.progress_decay);
+  }
+  return absl::OkStatus();
+}
+
 absl::Status Pool::GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const {
   auto it = streams_.find(stream);
   if (it == streams_.end()) {

@@ -88,6 +88,18 @@ class Pool {
   // progress. NOT_FOUND if unknown.
   absl::Status GetPredictions(absl::string_view stream, v1::StreamPredictions* out) const;
 
+  // Each visible question's learning progress as GetPredictions reports it (verified
+  // RMSE, 0 before anything was verified; TD-error RMS; weight change; label), without
+  // building a message: the daemon's writer samples it every few frames. NOT_FOUND if
+  // the stream is unknown; `out` has one entry per visible question.
+  struct ProgressSample {
+    double verified_rmse = 0;
+    double td_error_rms = 0;
+    double weight_change = 0;
+    ProgressLabel label = ProgressLabel::kLearning;
+  };
+  absl::Status SampleProgress(absl::string_view stream, absl::Span<ProgressSample> out) const;
+
   // Current answers of `stream` in the spec's question order (empty span if unknown);
   // successor tables' internal components are not included.
   absl::Span<const double> predictions(absl::string_view stream) const;

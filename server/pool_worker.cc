@@ -86,7 +86,7 @@ void PoolWorker::InstallSink() {
         const size_t visible = pool_->spec().num_visible_questions;
         for (const VerifiedPoint& p : points) {
           if (p.question >= visible) continue;
-          c->pending_points.push_back({p.question, {p.seq, p.prediction, p.realized, p.truncated}});
+          c->pending_points.push_back({p.seq, p.prediction, p.realized, p.question, p.truncated});
         }
       });
 }
@@ -510,9 +510,10 @@ void PoolWorker::ApplyTask(Task& task, ApplyContext& context) {
       // A progress sample every StreamHistory::kSampleEvery frames, taken mid-batch so
       // the trend has the same resolution whatever the producer's batch size.
       next_sample_seq = input.seq + StreamHistory::kSampleEvery;
-      if (pool_->GetPredictions(stream, &context.sample_scratch).ok()) {
+      context.progress.resize(pool_->spec().num_visible_questions);
+      if (pool_->SampleProgress(stream, absl::MakeSpan(context.progress)).ok()) {
         absl::MutexLock lock(&history_mu_);
-        history_[stream]->MaybeSample(context.sample_scratch);
+        history_[stream]->AddSample(input.seq, context.progress);
       }
     }
     if (!s.ok()) {
@@ -534,7 +535,7 @@ void PoolWorker::ApplyTask(Task& task, ApplyContext& context) {
   if (keep_history && r.frames_applied > 0) {
     absl::MutexLock lock(&history_mu_);
     StreamHistory* h = history_[stream].get();
-    for (const auto& p : context.pending_points) h->AddVerified(p.question, p.point);
+    h->AddVerified(context.pending_points);
   }
   if (m != nullptr) {
     m->FramesApplied(static_cast<double>(r.frames_applied));

@@ -192,13 +192,9 @@ class PoolWorker {
   struct ApplyContext {
     std::unique_ptr<Pool::Workspace> workspace;
     std::vector<double> values;
-    v1::StreamPredictions sample_scratch;  // progress samples (reused: no allocation)
+    std::vector<Pool::ProgressSample> progress;  // progress samples (reused)
     // Verified points gathered during a batch, moved into `history_` after it.
-    struct PendingPoint {
-      size_t question;
-      StreamHistory::Verified point;
-    };
-    std::vector<PendingPoint> pending_points;
+    std::vector<StreamHistory::Verified> pending_points;
     const std::string* current_stream = nullptr;
   };
   // A helper thread of the writer. `task` (null when idle) and `stop` are guarded by the

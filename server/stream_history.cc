@@ -18,34 +18,41 @@ int LabelIndex(const std::string& label) {
 }  // namespace
 
 StreamHistory::StreamHistory(size_t questions, size_t points)
-    : verified_(questions), samples_(questions) {
-  points = std::max<size_t>(points, 1);
-  for (auto& r : verified_) r.items.resize(points);
-  for (auto& r : samples_) r.items.resize(points);
+    : points_(std::max<size_t>(points, 1)), samples_(questions) {
+  verified_.items.resize(std::max<size_t>(questions, 1) * points_);
+  for (auto& r : samples_) r.items.resize(points_);
 }
 
-void StreamHistory::AddVerified(size_t q, const Verified& point) {
-  if (q >= verified_.size()) return;
-  verified_[q].Push(point);
+void StreamHistory::AddVerified(absl::Span<const Verified> points) {
+  for (const Verified& v : points) {
+    if (v.question < samples_.size()) verified_.Push(v);
+  }
 }
 
-void StreamHistory::MaybeSample(const v1::StreamPredictions& current) {
-  const uint64_t seq = current.as_of_seq();
-  if (sampled_ && seq < last_sample_seq_ + kSampleEvery) return;
+void StreamHistory::AddSample(uint64_t seq, absl::Span<const Pool::ProgressSample> samples) {
+  if (!SampleDue(seq)) return;
   sampled_ = true;
   last_sample_seq_ = seq;
-  const size_t n = std::min(samples_.size(), static_cast<size_t>(current.predictions_size()));
+  const size_t n = std::min(samples_.size(), samples.size());
   for (size_t q = 0; q < n; ++q) {
-    const v1::Prediction& p = current.predictions(static_cast<int>(q));
-    samples_[q].Push({seq, p.verified().count() > 0 ? p.verified().rmse() : 0.0,
-                      p.progress().td_error_rms(), p.progress().weight_change(),
-                      LabelIndex(p.progress().label())});
+    const Pool::ProgressSample& p = samples[q];
+    samples_[q].Push({seq, p.verified_rmse, p.td_error_rms, p.weight_change,
+                      LabelIndex(ProgressLabelName(p.label))});
   }
 }
 
 void StreamHistory::CopyTo(size_t q, v1::QuestionHistory* out) const {
-  if (q >= verified_.size()) return;
-  verified_[q].ForEach([out](const Verified& v) {
+  if (q >= samples_.size()) return;
+  // The question's newest points_ of the shared ring, oldest first.
+  size_t mine = 0;
+  verified_.ForEach([&mine, q](const Verified& v) { mine += v.question == q; });
+  size_t skip = mine > points_ ? mine - points_ : 0;
+  verified_.ForEach([out, q, &skip](const Verified& v) {
+    if (v.question != q) return;
+    if (skip > 0) {
+      --skip;
+      return;
+    }
     v1::VerifiedPoint* p = out->add_verified();
     p->set_seq(v.seq);
     p->set_predicted(v.predicted);
@@ -64,7 +71,7 @@ void StreamHistory::CopyTo(size_t q, v1::QuestionHistory* out) const {
 
 size_t StreamHistory::memory_bytes() const {
   size_t bytes = sizeof(*this);
-  for (const auto& r : verified_) bytes += r.items.capacity() * sizeof(Verified);
+  bytes += verified_.items.capacity() * sizeof(Verified);
   for (const auto& r : samples_) bytes += r.items.capacity() * sizeof(Sample);
   return bytes;
 }

@@ -204,7 +204,7 @@ TEST(Pool, ChangingTheSpecKeepsUnchangedQuestionsLearnedState) {
   v1::PoolSpec spec = OneHotSpec(3, 0.9, 0.8, 0.3);
   auto old_pool = Pool::Create(spec);
   ASSERT_TRUE(old_pool.ok());
-  for (uint64_t t = 1; t <= 60; ++t) {
+  for (uint64_t t = 1; t <= 150; ++t) {
     ASSERT_TRUE(ApplyValues(**old_pool, "s", t, {static_cast<double>(t % 3), t % 3 == 2 ? 1.0 : 0.0})
                     .ok());
   }
@@ -220,7 +220,7 @@ TEST(Pool, ChangingTheSpecKeepsUnchangedQuestionsLearnedState) {
   *next.add_questions() = spec.questions(0);
   auto new_pool = Pool::CreateFrom(**old_pool, next);
   ASSERT_TRUE(new_pool.ok()) << new_pool.status();
-  EXPECT_EQ((*new_pool)->last_seq("s"), 60u);
+  EXPECT_EQ((*new_pool)->last_seq("s"), 150u);
   EXPECT_EQ((*new_pool)->predictions("s")[1], before) << "kept question keeps its answer";
   EXPECT_EQ((*new_pool)->predictions("s")[0], 0.0) << "added question starts fresh";
   const BlockParams* kept_old = (*old_pool)->block_params("s", 0);
@@ -230,6 +230,33 @@ TEST(Pool, ChangingTheSpecKeepsUnchangedQuestionsLearnedState) {
     EXPECT_EQ(kept_new->row(r)[(*new_pool)->spec().questions[1].index_in_block],
               kept_old->row(r)[0]);
   }
+  // The kept question keeps its verified error (its held predictions and window move to
+  // the new pool's verifier group); the added one has verified nothing.
+  v1::StreamPredictions old_answers, new_answers;
+  ASSERT_TRUE((*old_pool)->GetPredictions("s", &old_answers).ok());
+  ASSERT_TRUE((*new_pool)->GetPredictions("s", &new_answers).ok());
+  const v1::VerifiedError was = old_answers.predictions(0).verified();
+  const v1::VerifiedError is = new_answers.predictions(1).verified();
+  ASSERT_GT(was.count(), 0u);
+  EXPECT_EQ(is.count(), was.count());
+  EXPECT_EQ(is.window(), was.window());
+  EXPECT_NEAR(is.rmse(), was.rmse(), 1e-12 * was.rmse());
+  EXPECT_EQ(new_answers.predictions(0).verified().count(), 0u);
+  for (uint64_t t = 151; t <= 300; ++t) {
+    const std::vector<double> row = {static_cast<double>(t % 3), t % 3 == 2 ? 1.0 : 0.0};
+    ASSERT_TRUE(ApplyValues(**old_pool, "s", t, row).ok());
+    ASSERT_TRUE(ApplyValues(**new_pool, "s", t, row).ok());
+  }
+  ASSERT_TRUE((*old_pool)->GetPredictions("s", &old_answers).ok());
+  ASSERT_TRUE((*new_pool)->GetPredictions("s", &new_answers).ok());
+  EXPECT_GT(new_answers.predictions(1).verified().count(), was.count() + 100);
+  EXPECT_EQ(new_answers.predictions(1).verified().count(),
+            old_answers.predictions(0).verified().count());
+  // (The new pool's traces restart at the change, so its answers differ slightly.)
+  EXPECT_NEAR(new_answers.predictions(1).verified().rmse(),
+              old_answers.predictions(0).verified().rmse(),
+              1e-3 * old_answers.predictions(0).verified().rmse());
+  const double before_change = (*old_pool)->predictions("s")[0];
   // A changed question (different lambda) starts fresh.
   v1::PoolSpec changed = spec;
   changed.mutable_questions(0)->set_lambda(0.1);
@@ -240,7 +267,7 @@ TEST(Pool, ChangingTheSpecKeepsUnchangedQuestionsLearnedState) {
   v1::PoolSpec bad = spec;
   bad.mutable_questions(0)->set_gamma(3);
   EXPECT_FALSE(Pool::CreateFrom(**old_pool, bad).ok());
-  EXPECT_EQ((*old_pool)->predictions("s")[0], before);
+  EXPECT_EQ((*old_pool)->predictions("s")[0], before_change);
 }
 
 TEST(Pool, ControlQuestionLearnsTheGreedyActionAndDrivesATarget) {
@@ -308,6 +335,36 @@ TEST(Pool, EstimatesBehaviorProbabilitiesWhenFramesLackThem) {
   ASSERT_TRUE((*pool)->GetPredictions("s", &out).ok());
   EXPECT_TRUE(out.predictions(0).progress().behavior_estimated());
   EXPECT_NEAR(out.predictions(0).value(), 1.0, 0.1);
+}
+
+// The daemon's history samples progress through SampleProgress, without a message: the
+// same figures GetPredictions reports.
+TEST(Pool, SampleProgressEqualsWhatGetPredictionsReports) {
+  v1::PoolSpec spec = OneHotSpec(3, 0.9, 0.8, 0.3);
+  v1::QuestionSpec second = spec.questions(0);
+  second.set_name("second");
+  second.set_gamma(0.5);
+  *spec.add_questions() = second;
+  auto pool = Pool::Create(spec);
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  std::vector<Pool::ProgressSample> samples(2);
+  EXPECT_EQ((*pool)->SampleProgress("s", absl::MakeSpan(samples)).code(),
+            absl::StatusCode::kNotFound);
+  for (uint64_t t = 1; t <= 300; ++t) {
+    ASSERT_TRUE(
+        ApplyValues(**pool, "s", t, {static_cast<double>(t % 3), t % 3 == 2 ? 1.0 : 0.0}).ok());
+  }
+  v1::StreamPredictions p;
+  ASSERT_TRUE((*pool)->GetPredictions("s", &p).ok());
+  ASSERT_TRUE((*pool)->SampleProgress("s", absl::MakeSpan(samples)).ok());
+  for (int q = 0; q < 2; ++q) {
+    const v1::Prediction& want = p.predictions(q);
+    ASSERT_GT(want.verified().count(), 0u);
+    EXPECT_EQ(samples[q].verified_rmse, want.verified().rmse()) << q;
+    EXPECT_EQ(samples[q].td_error_rms, want.progress().td_error_rms()) << q;
+    EXPECT_EQ(samples[q].weight_change, want.progress().weight_change()) << q;
+    EXPECT_EQ(ProgressLabelName(samples[q].label), want.progress().label()) << q;
+  }
 }
 
 TEST(Pool, UnknownStreamIsNotFound) {

@@ -244,19 +244,19 @@ TEST(RejectionReason, NamesTheFieldAtFault) {
 }
 
 TEST(StreamHistory, RingsKeepTheNewestPointsOldestFirst) {
-  StreamHistory h(/*questions=*/1, /*points=*/3);
+  StreamHistory h(/*questions=*/2, /*points=*/3);
   for (uint64_t seq = 1; seq <= 5; ++seq) {
-    h.AddVerified(0, {seq, static_cast<double>(seq) * 10, static_cast<double>(seq) * 11, false});
+    const double x = static_cast<double>(seq);
+    // Question 1 verifies nothing at seq 2 (its cumulant went missing, say).
+    std::vector<StreamHistory::Verified> points = {{seq, x * 10, x * 11, 0, false}};
+    if (seq != 2) points.push_back({seq, x * 20, x * 21, 1, seq == 5});
+    h.AddVerified(points);
   }
-  v1::StreamPredictions current;
-  v1::Prediction* pred = current.add_predictions();
-  pred->mutable_verified()->set_count(1);
-  pred->mutable_verified()->set_rmse(2.5);
-  pred->mutable_progress()->set_label("settled");
-  for (uint64_t seq = 1; seq <= 40; ++seq) {
-    current.set_as_of_seq(seq);
-    h.MaybeSample(current);  // one sample per kSampleEvery frames
-  }
+  std::vector<Pool::ProgressSample> sample(2);
+  sample[0].verified_rmse = 2.5;
+  sample[0].label = ProgressLabel::kSettled;
+  sample[1].label = ProgressLabel::kDiverging;
+  for (uint64_t seq = 1; seq <= 40; ++seq) h.AddSample(seq, sample);  // every kSampleEvery
   v1::QuestionHistory out;
   h.CopyTo(0, &out);
   ASSERT_EQ(out.verified_size(), 3);
@@ -268,6 +268,15 @@ TEST(StreamHistory, RingsKeepTheNewestPointsOldestFirst) {
   EXPECT_EQ(out.progress(2).seq(), 33u);
   EXPECT_EQ(out.progress(2).verified_rmse(), 2.5);
   EXPECT_EQ(out.progress(2).label(), "settled");
+  // The shared ring held 6 points, question 1's newest three among them.
+  v1::QuestionHistory other;
+  h.CopyTo(1, &other);
+  ASSERT_EQ(other.verified_size(), 3);
+  EXPECT_EQ(other.verified(0).seq(), 3u);
+  EXPECT_EQ(other.verified(2).seq(), 5u);
+  EXPECT_EQ(other.verified(2).predicted(), 100.0);
+  EXPECT_TRUE(other.verified(2).truncated());
+  EXPECT_EQ(other.progress(2).label(), "diverging");
 }
 
 }  // namespace
