@@ -403,8 +403,34 @@ void PoolWorker::ReplaceTask(Task& task) {
   for (const std::string& stream : pool_->stream_names()) Publish(stream);
 }
 
+namespace {
+
+google::protobuf::ArenaOptions SnapshotArenaOptions(size_t block_hint) {
+  google::protobuf::ArenaOptions options;
+  if (block_hint > 0) {
+    // Room for the previous snapshot's message and a little more, in one block.
+    options.start_block_size = std::max<size_t>(block_hint + block_hint / 8, 1024);
+    options.max_block_size = std::max(options.max_block_size, options.start_block_size);
+  }
+  return options;
+}
+
+}  // namespace
+
+PoolWorker::StreamSnapshot::StreamSnapshot(size_t block_hint)
+    : arena(SnapshotArenaOptions(block_hint)),
+      predictions(*google::protobuf::Arena::CreateMessage<v1::StreamPredictions>(&arena)) {}
+
 void PoolWorker::Publish(const std::string& stream) {
-  auto snapshot = std::make_shared<StreamSnapshot>();
+  size_t block_hint = 0;
+  {
+    absl::MutexLock lock(&snapshot_mu_);
+    auto it = snapshots_.find(stream);
+    if (it != snapshots_.end() && it->second != nullptr) {
+      block_hint = static_cast<size_t>(it->second->arena.SpaceUsed());
+    }
+  }
+  auto snapshot = std::make_shared<StreamSnapshot>(block_hint);
   if (!pool_->GetPredictions(stream, &snapshot->predictions).ok()) return;
   const StreamCounts& c = counts_[stream];
   snapshot->frames_applied = pool_->frames_applied(stream);

@@ -25,12 +25,13 @@
 #include "bellwether/v1/frame.pb.h"
 #include "bellwether/v1/prediction.pb.h"
 #include "bellwether/v1/service.pb.h"
+#include "bellwether/v1/state.pb.h"
 #include "core/frame_input.h"
 #include "core/pool.h"
+#include "google/protobuf/arena.h"
 #include "server/pool_metrics.h"
 #include "server/stream_history.h"
 #include "server/wal.h"
-#include "bellwether/v1/state.pb.h"
 
 namespace bellwether::server {
 
@@ -89,9 +90,17 @@ class PoolWorker {
     std::shared_ptr<const v1::StreamPredictions> predictions;
   };
 
-  // Everything a reader may want about one stream, published after each batch.
+  // Everything a reader may want about one stream, published after each batch. The
+  // message lives on an arena of its own, made in a block or two and freed at once: the
+  // writer publishes one per batch, where building and freeing a heap message cost an
+  // allocation per field. `block_hint` sizes the arena's first block (0: the default;
+  // the writer passes the previous snapshot's size).
   struct StreamSnapshot {
-    v1::StreamPredictions predictions;
+    explicit StreamSnapshot(size_t block_hint = 0);
+    StreamSnapshot(const StreamSnapshot&) = delete;
+    StreamSnapshot& operator=(const StreamSnapshot&) = delete;
+    google::protobuf::Arena arena;  // first: destroyed last
+    v1::StreamPredictions& predictions;
     uint64_t frames_applied = 0;
     uint64_t frames_rejected = 0;
   };

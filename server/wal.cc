@@ -43,12 +43,6 @@ bool ParseSegmentName(const std::string& name, uint64_t* first_lsn) {
   std::_Exit(3);
 }
 
-void PutU32(std::string* out, uint32_t v) {
-  char b[4];
-  std::memcpy(b, &v, 4);
-  out->append(b, 4);
-}
-
 uint32_t GetU32(const char* p) {
   uint32_t v;
   std::memcpy(&v, p, 4);
@@ -122,16 +116,21 @@ absl::StatusOr<uint64_t> Wal::Append(v1::WalRecord& record) {
     if (absl::Status s = OpenSegment(next_lsn_); !s.ok()) return s;
   }
   record.set_lsn(next_lsn_);
-  std::string payload = record.SerializeAsString();
-  if (payload.size() > kMaxRecordBytes) {
+  const size_t size = record.ByteSizeLong();
+  if (size > kMaxRecordBytes) {
     return absl::InvalidArgumentError(
-        absl::StrCat("batch: ", payload.size(), " bytes is too large for one log record"));
+        absl::StrCat("batch: ", size, " bytes is too large for one log record"));
   }
-  std::string framed;
-  framed.reserve(kHeaderBytes + payload.size());
-  PutU32(&framed, static_cast<uint32_t>(payload.size()));
-  PutU32(&framed, Crc32c(payload));
-  framed += payload;
+  // Header and payload in one buffer kept across calls: no allocation once it has grown
+  // to the largest record, and the payload is serialized in place.
+  std::string& framed = framed_;
+  framed.resize(kHeaderBytes + size);
+  char* header = framed.data();
+  record.SerializeWithCachedSizesToArray(reinterpret_cast<uint8_t*>(header + kHeaderBytes));
+  const uint32_t length = static_cast<uint32_t>(size);
+  const uint32_t crc = Crc32c(absl::string_view(header + kHeaderBytes, size));
+  std::memcpy(header, &length, 4);  // host order, as GetU32 reads them
+  std::memcpy(header + 4, &crc, 4);
   const bool injected =
       options_.fail_after_bytes > 0 && bytes_written_ + framed.size() > options_.fail_after_bytes;
   size_t written = 0;

@@ -79,6 +79,7 @@ class Wal {
   const Options options_;
   mutable absl::Mutex mu_;
   int fd_ ABSL_GUARDED_BY(mu_) = -1;
+  std::string framed_ ABSL_GUARDED_BY(mu_);  // Append's record buffer
   uint64_t segment_size_ ABSL_GUARDED_BY(mu_) = 0;
   uint64_t next_lsn_ ABSL_GUARDED_BY(mu_) = 1;
   uint64_t appended_lsn_ ABSL_GUARDED_BY(mu_) = 0;
