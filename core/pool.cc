@@ -681,9 +681,9 @@ absl::Status Pool::SampleProgress(absl::string_view stream, absl::Span<ProgressS
   for (size_t qi = 0; qi < n; ++qi) {
     const CompiledQuestion& q = spec_.questions[qi];
     const auto [g, slot] = verifier_slot_[qi];
-    const VerifiedErrorStats st = s.verifiers[g].stats(slot);
+    const ReturnVerifier& verifier = s.verifiers[g];
     ProgressSample& p = out[qi];
-    p.verified_rmse = st.count > 0 ? st.rmse : 0.0;
+    p.verified_rmse = verifier.verified_count(slot) > 0 ? verifier.window_rmse(slot) : 0.0;
     if (q.successor >= 0) {
       // As GetPredictions: the label of the table's first component, no TD figures.
       const CompiledQuestion& first =

@@ -524,14 +524,18 @@ void PoolWorker::ApplyTask(Task& task, ApplyContext& context) {
   StreamCounts& counts = counts_[stream];
   FrameInput input;
   uint64_t next_sample_seq = 0;
+  // The stream's last applied seq, kept here rather than looked up per frame: an applied
+  // frame's seq becomes it.
+  uint64_t last_seq = pool_->last_seq(stream);
   for (int i = 0; i < t.batch->frames_size(); ++i) {
     const v1::Frame& frame = t.batch->frames(i);
-    if (frame.seq() != 0 && frame.seq() <= pool_->last_seq(stream)) {
+    if (frame.seq() != 0 && frame.seq() <= last_seq) {
       ++r.duplicates;  // a resend after a reconnect: already learned from
       continue;
     }
     absl::Status s = FrameFromProto(frame, *t.columns, &context.values, &input);
     if (s.ok()) s = pool_->Apply(stream, input, *context.workspace);
+    if (s.ok()) last_seq = input.seq;
     if (s.ok() && keep_history && input.seq >= next_sample_seq) {
       // A progress sample every StreamHistory::kSampleEvery frames, taken mid-batch so
       // the trend has the same resolution whatever the producer's batch size.

@@ -275,6 +275,11 @@ VerifiedErrorStats ReturnVerifier::stats(size_t question) const {
   return s;
 }
 
+double ReturnVerifier::window_rmse(size_t question) const {
+  const uint32_t n = window_count_[question];
+  return n == 0 ? 0.0 : std::sqrt(std::max(0.0, sums_[nq_ + question]) / static_cast<double>(n));
+}
+
 void ReturnVerifier::RecomputeSums(size_t q) {
   uint32_t count = 0;
   for (size_t k = 0; k < kSums; ++k) sums_[k * nq_ + q] = 0;

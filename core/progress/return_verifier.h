@@ -150,6 +150,10 @@ class ReturnVerifier {
   void set_sink(VerificationSink sink) { sink_ = std::move(sink); }
 
   VerifiedErrorStats stats(size_t question = 0) const;
+  // Of stats(): the predictions verified so far, and the window's RMSE (0 when empty),
+  // without the rest (sampled every few frames).
+  uint64_t verified_count(size_t question) const { return verified_[question]; }
+  double window_rmse(size_t question) const;
   // Bytes reserved by this verifier for all its questions (fixed at construction).
   size_t memory_bytes() const;
 

@@ -6,12 +6,13 @@
 #include <string>
 #include <vector>
 
+#include "absl/strings/str_cat.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
-#include "absl/strings/str_cat.h"
 #include "core/pool.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
+#include "tests/legacy_state_frames.h"
 
 namespace bellwether {
 namespace {
@@ -322,6 +323,80 @@ TEST(ActionValues, FramesWithoutAnActionAreSkippedNotIndexed) {
       EXPECT_GT(p.progress().skipped_missing(), 0u);
     }
   }
+}
+
+// A checkpoint in pool-state version 5 (one verifier per question, before verifier
+// groups), tests/data/pool_state_v5.bin, written by the version-5 build (commit 6988c2f)
+// after frames 1 to 1,500 of tests/legacy_state_frames.h on two streams. It loads with
+// every question's verified error as that build reported it (printed by the small writer
+// compiled against that commit's core library: `kReported` below, rmse to six digits),
+// and after 1,500 more frames it answers and verifies as a pool that saw every frame.
+// (Version 5 windowed each question's last 1,000 verified predictions; version 6 the
+// group's last 1,000 verification steps, fewer for a question whose cumulant went
+// missing. A loaded window keeps its entries until newer steps push them out.)
+TEST(PoolState, LoadsAVersion5CheckpointWithOneVerifierPerQuestion) {
+  auto spec = ReadPoolSpecFile(std::string(BW_TEST_DATA_DIR) + "/legacy_state_pool.json");
+  ASSERT_TRUE(spec.ok()) << spec.status();
+  auto state = ReadFileToString(std::string(BW_TEST_DATA_DIR) + "/pool_state_v5.bin");
+  ASSERT_TRUE(state.ok()) << state.status();
+  auto loaded = Pool::Create(*spec);
+  auto replayed = Pool::Create(*spec);
+  ASSERT_TRUE(loaded.ok() && replayed.ok());
+  ASSERT_TRUE((*loaded)->RestoreState(*state).ok());
+  const std::vector<std::string> streams = {"north", "south"};
+  auto apply = [&](Pool& pool, uint64_t from, uint64_t to) {
+    for (uint64_t t = from; t <= to; ++t) {
+      for (int s = 0; s < 2; ++s) {
+        const std::vector<double> v = testing::LegacyStateFrame(t, s);
+        FrameInput f;
+        f.seq = t;
+        f.values = v;
+        ASSERT_TRUE(pool.Apply(streams[s], f).ok());
+      }
+    }
+  };
+  apply(**replayed, 1, 1500);
+  // What the version-5 build printed for north (count, unverifiable, window, rmse to six
+  // digits), in question order.
+  struct Reported {
+    uint64_t count, unverifiable, window;
+    double rmse;
+  };
+  const Reported kReported[] = {
+      {464, 990, 464, 30.5591}, {464, 990, 464, 4.66727}, {1273, 0, 1000, 6.7133}};
+  for (int q = 0; q < 3; ++q) {
+    v1::StreamPredictions a, b;
+    ASSERT_TRUE((*loaded)->GetPredictions("north", &a).ok());
+    ASSERT_TRUE((*replayed)->GetPredictions("north", &b).ok());
+    const v1::VerifiedError& va = a.predictions(q).verified();
+    EXPECT_EQ(a.predictions(q).value(), b.predictions(q).value()) << q;
+    EXPECT_EQ(va.count(), kReported[q].count) << q;
+    EXPECT_EQ(va.count(), b.predictions(q).verified().count()) << q;
+    EXPECT_EQ(va.unverifiable(), kReported[q].unverifiable) << q;
+    EXPECT_EQ(va.window(), kReported[q].window) << q;
+    EXPECT_NEAR(va.rmse(), kReported[q].rmse, 1e-5 * kReported[q].rmse) << q;
+  }
+  auto expect_alike = [&](const char* when) {
+    for (int s = 0; s < 2; ++s) {
+      v1::StreamPredictions a, b;
+      ASSERT_TRUE((*loaded)->GetPredictions(streams[s], &a).ok());
+      ASSERT_TRUE((*replayed)->GetPredictions(streams[s], &b).ok());
+      for (int q = 0; q < 3; ++q) {
+        const v1::VerifiedError& va = a.predictions(q).verified();
+        const v1::VerifiedError& vb = b.predictions(q).verified();
+        const std::string where = absl::StrCat(when, " ", streams[s], " question ", q);
+        EXPECT_EQ(a.predictions(q).value(), b.predictions(q).value()) << where;
+        EXPECT_EQ(va.count(), vb.count()) << where;
+        EXPECT_EQ(va.unverifiable(), vb.unverifiable()) << where;
+        EXPECT_EQ(va.window(), vb.window()) << where;
+        EXPECT_NEAR(va.rmse(), vb.rmse(), 1e-9 * vb.rmse()) << where;
+        EXPECT_NEAR(va.bias(), vb.bias(), 1e-9 * std::max(1.0, std::fabs(vb.bias()))) << where;
+      }
+    }
+  };
+  apply(**loaded, 1501, 3000);
+  apply(**replayed, 1501, 3000);
+  expect_alike("continued");
 }
 
 }  // namespace
