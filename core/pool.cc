@@ -458,7 +458,9 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame, Work
                                                    spec_.signal_names.size(), " signals"));
   }
   if (stream.empty()) return absl::InvalidArgumentError("stream: name must not be empty");
-  const uint64_t last = last_seq(stream);
+  // One lookup of the stream per frame.
+  const auto found = streams_.find(stream);
+  const uint64_t last = found == streams_.end() ? 0 : found->second->last_seq;
   if (frame.seq <= last) {
     return absl::InvalidArgumentError(
         absl::StrCat("frame seq ", frame.seq, ": seq does not increase (stream '", stream,
@@ -469,7 +471,7 @@ absl::Status Pool::Apply(absl::string_view stream, const FrameInput& frame, Work
         "frame seq ", frame.seq, ": action: ", *frame.action, " is not an action of pool ",
         name(), " (", spec_.actions.size(), " declared)"));
   }
-  StreamState& s = GetOrCreateStream(stream);
+  StreamState& s = found != streams_.end() ? *found->second : GetOrCreateStream(stream);
 
   // Extended signal vector: declared signals, then clock signals; NaN = missing.
   std::copy(frame.values.begin(), frame.values.end(), ws.extended.begin());

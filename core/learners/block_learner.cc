@@ -641,7 +641,7 @@ void BlockLearner::Learn(const BlockSpec& spec, const std::vector<CompiledQuesti
   } else {
     p.MarkAllDirty();
   }
-  if (Guard(spec, questions, p, state, answers, track_rows)) {
+  if (Guard(spec, p, state, answers, track_rows)) {
     Answer(spec, xn, pi_answer, p, answers, greedy_action);
   }
 }
@@ -842,18 +842,17 @@ void BlockLearner::UpdateRupee(const BlockSpec& spec, const BlockStep& step, dou
   }
 }
 
-bool BlockLearner::Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
-                         BlockParams& p, BlockTraceState& state, absl::Span<const double> answers,
-                         bool track_rows) {
+bool BlockLearner::Guard(const BlockSpec& spec, BlockParams& p, BlockTraceState& state,
+                         absl::Span<const double> answers, bool track_rows) {
   const uint32_t nq = p.cols();
   const size_t rows = p.rows();
   bool reset = false;
   bool plausible = true;
+  // A block's questions share gamma (the pool spec forms blocks so).
+  const double horizon =
+      spec.gamma < 1.0 ? std::min(1.0 / (1.0 - spec.gamma), kMaxHorizon) : kMaxHorizon;
   for (uint32_t q = 0; q < nq; ++q) {
     QuestionCounters& c = p.counters_[q];
-    const CompiledQuestion& cq = questions[spec.questions[q]];
-    const double horizon = cq.gamma < 1.0 ? std::min(1.0 / (1.0 - cq.gamma), kMaxHorizon)
-                                          : kMaxHorizon;
     // The largest return the cumulants seen so far could add up to.
     const double range = std::max(1.0, c.max_abs_cumulant) * horizon;
     if (std::isfinite(answers[q]) && std::fabs(answers[q]) <= kDivergenceFactor * range) {

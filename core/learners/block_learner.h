@@ -258,9 +258,8 @@ class BlockLearner {
                    const SparseTrace& trace, BlockParams& p);
   // `track_rows`: the snapshot copies only the rows marked dirty (see BlockParams), and
   // the trace's rows are marked after it.
-  bool Guard(const BlockSpec& spec, const std::vector<CompiledQuestion>& questions,
-             BlockParams& p, BlockTraceState& state, absl::Span<const double> answers,
-             bool track_rows);
+  bool Guard(const BlockSpec& spec, BlockParams& p, BlockTraceState& state,
+             absl::Span<const double> answers, bool track_rows);
 
   uint32_t num_actions_;
   std::vector<float> v_, v_next_, delta_, scratch_;

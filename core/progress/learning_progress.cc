@@ -14,21 +14,6 @@ const char* ProgressLabelName(ProgressLabel label) {
   return "learning";
 }
 
-void LearningProgress::Update(double delta, double weight_change_now, double rho, double decay) {
-  ++observed;
-  // Averages are bias-corrected for the first updates by starting the rate at 1/n.
-  const double slow = std::max(1.0 - decay, 1.0 / static_cast<double>(observed));
-  const double fast = std::max(std::min(1.0, 10.0 * (1.0 - decay)),
-                               1.0 / static_cast<double>(observed));
-  td_mean += slow * (delta - td_mean);
-  td_sq += slow * (delta * delta - td_sq);
-  td_fast_mean += fast * (delta - td_fast_mean);
-  weight_change += slow * (weight_change_now - weight_change);
-  if (observed * (1.0 - decay) >= 1.0) weight_change_peak = std::max(weight_change_peak, weight_change);
-  rho_mean += slow * (rho - rho_mean);
-  rho_sq += slow * (rho * rho - rho_sq);
-}
-
 void LearningProgress::MarkReset() {
   last_reset_at = observed;
   reset_ever = true;

@@ -24,6 +24,7 @@
 #ifndef BELLWETHER_CORE_PROGRESS_LEARNING_PROGRESS_H_
 #define BELLWETHER_CORE_PROGRESS_LEARNING_PROGRESS_H_
 
+#include <algorithm>
 #include <cstdint>
 
 namespace bellwether {
@@ -45,8 +46,24 @@ struct LearningProgress {
   uint64_t last_reset_at = 0;          // `observed` at the last divergence reset
   bool reset_ever = false;
 
-  // Folds in one learned transition.
-  void Update(double delta, double weight_change_now, double rho, double decay);
+  // Folds in one learned transition (inline: a block calls it for each question on
+  // every frame).
+  void Update(double delta, double weight_change_now, double rho, double decay) {
+    ++observed;
+    // Averages are bias-corrected for the first updates by starting the rate at 1/n.
+    const double first = 1.0 / static_cast<double>(observed);
+    const double slow = std::max(1.0 - decay, first);
+    const double fast = std::max(std::min(1.0, 10.0 * (1.0 - decay)), first);
+    td_mean += slow * (delta - td_mean);
+    td_sq += slow * (delta * delta - td_sq);
+    td_fast_mean += fast * (delta - td_fast_mean);
+    weight_change += slow * (weight_change_now - weight_change);
+    if (static_cast<double>(observed) * (1.0 - decay) >= 1.0) {
+      weight_change_peak = std::max(weight_change_peak, weight_change);
+    }
+    rho_mean += slow * (rho - rho_mean);
+    rho_sq += slow * (rho * rho - rho_sq);
+  }
   // A divergence-guard reset happened now.
   void MarkReset();
 
