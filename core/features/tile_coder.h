@@ -43,6 +43,9 @@ class TileCoder {
   Options options_;
   uint32_t cells_per_dim_;  // tiles_per_dim (+1 when not periodic: offsets shift a row in)
   uint64_t tiles_per_tiling_;
+  // Tiling k's displacement of dimension d, in tiles, at [k * dims + d] (Encode runs on
+  // every frame; these never change).
+  std::vector<double> shifts_;
 };
 
 }  // namespace bellwether
