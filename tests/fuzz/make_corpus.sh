@@ -19,8 +19,14 @@ if [ ! -f "$build/build.ninja" ]; then
 fi
 cmake --build "$build" --parallel "$(nproc 2>/dev/null || echo 2)" --target make_fuzz_corpus
 
+# Seeds in older formats are kept, as the loaders still read them: checkpoint/v5-* are
+# the checkpoint seeds in pool-state version 5, written by this script at commit 6988c2f.
+kept=$(mktemp -d)
+trap 'rm -rf "$kept"' EXIT
+cp "$corpus"/checkpoint/v5-* "$kept"/ 2>/dev/null || true
 rm -rf "$corpus"
 mkdir -p "$corpus"/{spec_json,frame_batch,csv_reader,checkpoint,wal}
+cp "$kept"/* "$corpus/checkpoint/" 2>/dev/null || true
 cp "$root"/deploy/examples/grid.json "$root"/deploy/examples/recipes/*.json \
    "$root"/tests/data/grid_pool.json "$corpus/spec_json/"
 head -n 20 "$shared/halfhourly-demand-2000.csv" > "$corpus/csv_reader/demand-head.csv"
