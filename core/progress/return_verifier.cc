@@ -280,18 +280,22 @@ double ReturnVerifier::window_rmse(size_t question) const {
   return n == 0 ? 0.0 : std::sqrt(std::max(0.0, sums_[nq_ + question]) / static_cast<double>(n));
 }
 
+void ReturnVerifier::AddEntry(std::vector<double>& sums, size_t q, size_t at) const {
+  const double e = window_error_[at], g = window_realized_[at], v = window_weight_[at];
+  sums[q] += e;
+  sums[nq_ + q] += e * e;
+  sums[2 * nq_ + q] += g;
+  sums[3 * nq_ + q] += g * g;
+  sums[4 * nq_ + q] += v;
+  sums[5 * nq_ + q] += v * v;
+}
+
 void ReturnVerifier::RecomputeSums(size_t q) {
   uint32_t count = 0;
   for (size_t k = 0; k < kSums; ++k) sums_[k * nq_ + q] = 0;
   for (size_t i = window_filled_; i-- > 0;) {  // oldest first
     const size_t at = WindowSlotBack(i) * nq_ + q;
-    const double e = window_error_[at], g = window_realized_[at], v = window_weight_[at];
-    sums_[q] += e;
-    sums_[nq_ + q] += e * e;
-    sums_[2 * nq_ + q] += g;
-    sums_[3 * nq_ + q] += g * g;
-    sums_[4 * nq_ + q] += v;
-    sums_[5 * nq_ + q] += v * v;
+    AddEntry(sums_, q, at);
     count += window_valid_[at];
   }
   window_count_[q] = count;
@@ -299,16 +303,7 @@ void ReturnVerifier::RecomputeSums(size_t q) {
 
 void ReturnVerifier::RecomputeLap(size_t q) {
   for (size_t k = 0; k < kSums; ++k) lap_[k * nq_ + q] = 0;
-  for (size_t slot = 0; slot < window_next_; ++slot) {
-    const size_t at = slot * nq_ + q;
-    const double e = window_error_[at], g = window_realized_[at], v = window_weight_[at];
-    lap_[q] += e;
-    lap_[nq_ + q] += e * e;
-    lap_[2 * nq_ + q] += g;
-    lap_[3 * nq_ + q] += g * g;
-    lap_[4 * nq_ + q] += v;
-    lap_[5 * nq_ + q] += v * v;
-  }
+  for (size_t slot = 0; slot < window_next_; ++slot) AddEntry(lap_, q, slot * nq_ + q);
 }
 
 size_t ReturnVerifier::memory_bytes() const {

@@ -214,6 +214,8 @@ class ReturnVerifier {
   // since the ring last wrapped (slots [0, window_next_), in slot order).
   void RecomputeSums(size_t q);
   void RecomputeLap(size_t q);
+  // Adds the window entry at `at` to column q of `sums` (kSums rows of nq_).
+  void AddEntry(std::vector<double>& sums, size_t q, size_t at) const;
 
   size_t nq_;
   VerificationMode mode_;

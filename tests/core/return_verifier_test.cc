@@ -554,12 +554,6 @@ TEST(ReturnVerifier, GroupLoadsPerQuestionRecordsOfVersion5) {
   EXPECT_EQ(got[1].size(), 2u);
 }
 
-}  // namespace
-}  // namespace bellwether
-
-namespace bellwether {
-namespace {
-
 // The window's sums are running sums, restarted from each full lap of the ring: a huge
 // error that has left the window leaves no rounding residue behind in its statistics.
 TEST(ReturnVerifier, HugeErrorsLeaveNoResidueOnceOutOfTheWindow) {
