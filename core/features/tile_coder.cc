@@ -54,7 +54,7 @@ void TileCoder::Encode(absl::Span<const double> inputs, uint32_t base, uint32_t 
   for (uint32_t k = 0; k < options_.tilings; ++k) {
     uint64_t tile = 0;
     uint64_t h = Mix(options_.group_id * 0x100000001b3ULL + k);
-    const double* shift = &shifts_[k * dims];
+    const double* shift = shifts_.data() + k * dims;  // no dimensions: never read
     for (size_t d = 0; d < dims; ++d) {
       auto cell = static_cast<uint64_t>(std::floor(scaled[d] + shift[d]));
       if (options_.periodic) cell %= options_.tiles_per_dim;
