@@ -175,6 +175,24 @@ struct NaiveVerifier {
   }
 };
 
+// The tail of a per-question record of pool-state versions 2 to 5 with an empty window
+// of `window` entries: the window's size, next slot and fill, its sums (version 4 on),
+// the totals (`count` verified, none truncated or unverifiable) and ten empty bins.
+void PutLegacyEmptyWindowAndTotals(StateWriter& w, uint64_t window, bool sums, uint64_t count) {
+  w.Put<uint64_t>(window);
+  w.Put<uint64_t>(0);
+  w.Put<uint64_t>(0);
+  for (int k = 0; sums && k < 6; ++k) w.Put(0.0);
+  w.Put<uint64_t>(count);
+  w.Put<uint64_t>(0);
+  w.Put<uint64_t>(0);
+  for (int b = 0; b < 10; ++b) {
+    w.Put<uint64_t>(0);
+    w.Put(0.0);
+    w.Put(0.0);
+  }
+}
+
 // A long importance-weighted run with varying continuations (terminations included) and
 // ratios: thousands of rebases, and every verified return equal to the term-by-term sum.
 TEST(ReturnVerifier, RunningSumsMatchTermByTermReturnsOverLongRuns) {
@@ -237,17 +255,7 @@ TEST(ReturnVerifier, LoadsTheVersion2Layout) {
     w.Put<uint64_t>(0);
     w.Put<uint32_t>(static_cast<uint32_t>(h.steps));
   }
-  w.Put<uint64_t>(100);
-  w.Put<uint64_t>(0);
-  w.Put<uint64_t>(0);
-  w.Put<uint64_t>(0);
-  w.Put<uint64_t>(0);
-  w.Put<uint64_t>(0);
-  for (int b = 0; b < 10; ++b) {
-    w.Put<uint64_t>(0);
-    w.Put(0.0);
-    w.Put(0.0);
-  }
+  PutLegacyEmptyWindowAndTotals(w, 100, /*sums=*/false, 0);
   ReturnVerifier loaded(gamma, 1000, 100);
   StateReader r(payload);
   r.set_version(2);
@@ -508,18 +516,7 @@ TEST(ReturnVerifier, GroupLoadsPerQuestionRecordsOfVersion5) {
       w.Put<uint64_t>(7);       // seq
       w.Put<int64_t>(1000 - static_cast<int64_t>(h.steps));
     }
-    w.Put<uint64_t>(50);  // window: empty
-    w.Put<uint64_t>(0);
-    w.Put<uint64_t>(0);
-    for (int k = 0; k < 6; ++k) w.Put(0.0);  // sums (version 4 on)
-    w.Put<uint64_t>(q);                      // count
-    w.Put<uint64_t>(0);
-    w.Put<uint64_t>(0);
-    for (int b = 0; b < 10; ++b) {
-      w.Put<uint64_t>(0);
-      w.Put(0.0);
-      w.Put(0.0);
-    }
+    PutLegacyEmptyWindowAndTotals(w, 50, /*sums=*/true, q);
   }
   ReturnVerifier group(gamma, 1000, 50, VerificationMode::kOnPolicy, {false, false});
   StateReader r(payload);
