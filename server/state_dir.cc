@@ -14,6 +14,8 @@
 #include "absl/time/clock.h"
 #include "core/frame_input.h"
 #include "core/io/crc32c.h"
+#include "google/protobuf/io/zero_copy_stream_impl_lite.h"
+#include "server/durable_file.h"
 #include "server/wal.h"
 
 namespace bellwether::server {
@@ -22,6 +24,7 @@ namespace {
 constexpr char kFormatFile[] = "FORMAT";
 constexpr char kCheckpointMagic[4] = {'B', 'W', 'C', 'K'};
 constexpr size_t kCheckpointHeader = 4 + 4 + 8 + 4;
+constexpr size_t kCheckpointCrcAt = 4 + 4 + 8;
 constexpr size_t kKeepCheckpoints = 2;
 
 std::string FormatLine() { return absl::StrCat("bellwether state format ", kStateFormatVersion); }
@@ -57,6 +60,56 @@ std::vector<std::pair<uint64_t, std::string>> ListCheckpoints(const std::string&
 
 void Put(std::string* out, const void* p, size_t n) { out->append(static_cast<const char*>(p), n); }
 
+// The payload's size, or RESOURCE_EXHAUSTED past protobuf's 2 GiB message limit.
+absl::StatusOr<size_t> CheckpointPayloadSize(const v1::Checkpoint& checkpoint) {
+  const size_t size = checkpoint.ByteSizeLong();
+  constexpr size_t kProtobufLimit = (size_t{1} << 31) - 1;
+  if (size > kProtobufLimit) {
+    return absl::ResourceExhaustedError(absl::StrCat(
+        "checkpoint of ", size,
+        " bytes exceeds the 2 GiB limit of this checkpoint format; "
+        "not written (the log keeps everything; use fewer questions or featureTableSize per "
+        "pool, or POOLED learning)"));
+  }
+  return size;
+}
+
+// "BWCK", version, payload length, CRC-32C of the payload.
+std::string CheckpointHeader(uint64_t payload_size, uint32_t crc) {
+  std::string out;
+  out.reserve(kCheckpointHeader);
+  Put(&out, kCheckpointMagic, 4);
+  const uint32_t version = kStateFormatVersion;
+  Put(&out, &version, 4);
+  Put(&out, &payload_size, 8);
+  Put(&out, &crc, 4);
+  return out;
+}
+
+// Protobuf's serializer writes into this a block at a time; each block goes into the
+// checksum and the file. The payload is never whole in memory: a checkpoint is most of
+// the daemon's state, and a second copy of it doubled the daemon's peak memory while
+// checkpointing (and took a long write into the page cache, see durable_file.h).
+class ChecksummedFileOutput : public google::protobuf::io::CopyingOutputStream {
+ public:
+  explicit ChecksummedFileOutput(DurableFileWriter* file) : file_(file) {}
+
+  bool Write(const void* buffer, int size) override {
+    const absl::string_view piece(static_cast<const char*>(buffer), static_cast<size_t>(size));
+    crc_ = Crc32c(piece, crc_);
+    status_ = file_->Append(piece);
+    return status_.ok();
+  }
+
+  uint32_t crc() const { return crc_; }
+  const absl::Status& status() const { return status_; }
+
+ private:
+  DurableFileWriter* const file_;
+  uint32_t crc_ = 0;
+  absl::Status status_;
+};
+
 }  // namespace
 
 absl::Status PrepareStateDir(const std::string& dir) {
@@ -88,34 +141,17 @@ absl::Status PrepareStateDir(const std::string& dir) {
 }
 
 absl::StatusOr<std::string> EncodeCheckpoint(const v1::Checkpoint& checkpoint) {
-  const size_t size = checkpoint.ByteSizeLong();
-  constexpr size_t kProtobufLimit = (size_t{1} << 31) - 1;
-  if (size > kProtobufLimit) {
-    return absl::ResourceExhaustedError(absl::StrCat(
-        "checkpoint of ", size, " bytes exceeds the 2 GiB limit of this checkpoint format; "
-        "not written (the log keeps everything; use fewer questions or featureTableSize per "
-        "pool, or POOLED learning)"));
-  }
-  // Serialized straight after the header, not into a string of its own and copied: the
-  // pools' states are most of the checkpoint, and a third copy of them raised the
-  // daemon's peak memory while checkpointing.
-  std::string out;
-  out.reserve(kCheckpointHeader + size);
-  Put(&out, kCheckpointMagic, 4);
-  const uint32_t version = kStateFormatVersion;
-  Put(&out, &version, 4);
-  const uint64_t len = size;
-  Put(&out, &len, 8);
-  const size_t crc_at = out.size();
-  const uint32_t no_crc_yet = 0;
-  Put(&out, &no_crc_yet, 4);
-  out.resize(kCheckpointHeader + size);
+  absl::StatusOr<size_t> size = CheckpointPayloadSize(checkpoint);
+  if (!size.ok()) return size.status();
+  // Serialized straight after the header, not into a string of its own and copied.
+  std::string out = CheckpointHeader(*size, 0);
+  out.resize(kCheckpointHeader + *size);
   char* payload = out.data() + kCheckpointHeader;
-  if (!checkpoint.SerializeToArray(payload, static_cast<int>(size))) {
+  if (!checkpoint.SerializeToArray(payload, static_cast<int>(*size))) {
     return absl::InternalError("checkpoint: protobuf serialization failed");
   }
-  const uint32_t crc = Crc32c(absl::string_view(payload, size));
-  std::memcpy(out.data() + crc_at, &crc, 4);
+  const uint32_t crc = Crc32c(absl::string_view(payload, *size));
+  std::memcpy(out.data() + kCheckpointCrcAt, &crc, 4);
   return out;
 }
 
@@ -156,17 +192,36 @@ absl::StatusOr<v1::Checkpoint> DecodeCheckpoint(absl::string_view bytes) {
 
 absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir,
                                          const v1::Checkpoint& checkpoint) {
-  absl::StatusOr<std::string> encoded = EncodeCheckpoint(checkpoint);
-  if (!encoded.ok()) return encoded.status();
-  const std::string& bytes = *encoded;
-  const std::string name = absl::StrFormat("checkpoint-%020d.bwc", checkpoint.start_lsn());
-  if (absl::Status s = WriteFileDurably(dir, name, bytes); !s.ok()) return s;
+  absl::StatusOr<size_t> size = CheckpointPayloadSize(checkpoint);
+  if (!size.ok()) return size.status();
+  DurableFileWriter file;
+  if (absl::Status s =
+          file.Open(dir, absl::StrFormat("checkpoint-%020d.bwc", checkpoint.start_lsn()));
+      !s.ok()) {
+    return s;
+  }
+  if (absl::Status s = file.Append(CheckpointHeader(*size, 0)); !s.ok()) return s;
+  ChecksummedFileOutput payload(&file);
+  {
+    google::protobuf::io::CopyingOutputStreamAdaptor adaptor(&payload,
+                                                             static_cast<int>(kDurableWriteChunk));
+    const bool serialized = checkpoint.SerializeToZeroCopyStream(&adaptor) && adaptor.Flush();
+    if (!payload.status().ok()) return payload.status();
+    if (!serialized) return absl::InternalError("checkpoint: protobuf serialization failed");
+  }
+  if (file.size() != kCheckpointHeader + *size) {
+    return absl::InternalError(absl::StrCat("checkpoint: serialized ",
+                                            file.size() - kCheckpointHeader, " bytes, expected ",
+                                            *size, " (state changed while writing?)"));
+  }
+  if (absl::Status s = file.WriteAt(0, CheckpointHeader(*size, payload.crc())); !s.ok()) return s;
+  if (absl::Status s = file.Commit(); !s.ok()) return s;
   const auto all = ListCheckpoints(dir);
   for (size_t i = kKeepCheckpoints; i < all.size(); ++i) {
     std::error_code ec;
     std::filesystem::remove(all[i].second, ec);
   }
-  return bytes.size();
+  return file.size();
 }
 
 absl::StatusOr<Recovery> Recover(const std::string& dir) {

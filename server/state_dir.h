@@ -38,7 +38,8 @@ absl::StatusOr<std::string> EncodeCheckpoint(const v1::Checkpoint& checkpoint);
 absl::StatusOr<v1::Checkpoint> DecodeCheckpoint(absl::string_view bytes);
 
 // Writes a checkpoint durably (temp file, fsync, rename, fsync of the directory) and
-// deletes all but the newest two. Returns the file's size. Nothing is written (and the
+// deletes all but the newest two. The payload is serialized and checksummed into the file
+// a block at a time, never whole in memory; the bytes equal EncodeCheckpoint's. Returns the file's size. Nothing is written (and the
 // caller must not trim the log) on error.
 absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir, const v1::Checkpoint& checkpoint);
 

@@ -18,6 +18,7 @@
 #include "absl/strings/str_cat.h"
 #include "absl/strings/str_format.h"
 #include "core/io/crc32c.h"
+#include "server/durable_file.h"
 
 namespace bellwether::server {
 namespace {
@@ -35,26 +36,10 @@ bool ParseSegmentName(const std::string& name, uint64_t* first_lsn) {
   return absl::SimpleAtoi(name.substr(4, 20), first_lsn);
 }
 
-[[noreturn]] void FatalSync(const std::string& what, int err) {
-  std::cerr << "bellwetherd: FATAL: " << what << ": " << std::strerror(err)
-            << "; exiting without acknowledging more (data on disk may be incomplete; "
-               "recovery replays what is intact)"
-            << std::endl;
-  std::_Exit(3);
-}
-
 uint32_t GetU32(const char* p) {
   uint32_t v;
   std::memcpy(&v, p, 4);
   return v;
-}
-
-absl::Status SyncDir(const std::string& dir) {
-  const int fd = open(dir.c_str(), O_RDONLY | O_DIRECTORY);
-  if (fd < 0) return absl::InternalError(absl::StrCat("open ", dir, ": ", std::strerror(errno)));
-  if (fsync(fd) != 0) FatalSync(absl::StrCat("fsync of directory ", dir), errno);
-  close(fd);
-  return absl::OkStatus();
 }
 
 }  // namespace
@@ -319,34 +304,6 @@ absl::Status ReadWal(const std::string& dir, uint64_t after_lsn,
   }
   *next_lsn = std::max(expected, after_lsn + 1);
   return absl::OkStatus();
-}
-
-absl::Status WriteFileDurably(const std::string& dir, const std::string& name,
-                              absl::string_view contents) {
-  const std::string tmp = dir + "/." + name + ".tmp";
-  const int fd = open(tmp.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
-  if (fd < 0) return absl::UnavailableError(absl::StrCat("open ", tmp, ": ", std::strerror(errno)));
-  size_t written = 0;
-  while (written < contents.size()) {
-    const ssize_t n = write(fd, contents.data() + written, contents.size() - written);
-    if (n < 0) {
-      if (errno == EINTR) continue;
-      const int err = errno;
-      close(fd);
-      unlink(tmp.c_str());
-      if (err == ENOSPC || err == EDQUOT) {
-        return absl::ResourceExhaustedError(absl::StrCat("write ", tmp, ": disk full"));
-      }
-      return absl::UnavailableError(absl::StrCat("write ", tmp, ": ", std::strerror(err)));
-    }
-    written += static_cast<size_t>(n);
-  }
-  if (fsync(fd) != 0) FatalSync(absl::StrCat("fsync of ", tmp), errno);
-  close(fd);
-  if (rename(tmp.c_str(), (dir + "/" + name).c_str()) != 0) {
-    return absl::UnavailableError(absl::StrCat("rename ", tmp, ": ", std::strerror(errno)));
-  }
-  return SyncDir(dir);
 }
 
 }  // namespace bellwether::server

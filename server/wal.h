@@ -107,11 +107,6 @@ absl::Status ReadWal(const std::string& dir, uint64_t after_lsn,
                      uint64_t* next_lsn, std::string* warning, bool repair = false,
                      uint64_t* first_lsn = nullptr);
 
-// Writes, syncs and renames a file into place: `dir`/`name` holds `contents` afterwards,
-// or the call failed and the old file (if any) is intact. The directory is synced too.
-absl::Status WriteFileDurably(const std::string& dir, const std::string& name,
-                              absl::string_view contents);
-
 }  // namespace bellwether::server
 
 #endif  // BELLWETHER_SERVER_WAL_H_

@@ -67,6 +67,7 @@
 #include "core/io/crc32c.h"
 #include "core/pool.h"
 #include "google/protobuf/util/json_util.h"
+#include "server/durable_file.h"
 #include "server/state_dir.h"
 #include "server/wal.h"
 
@@ -646,7 +647,8 @@ int InProcessCheckpoint(const Options& o) {
   Result("inproc.write_s", write_s);
   Result("inproc.durable_write_s", durable_write_s);
   Result("inproc.file_bytes", static_cast<double>(*written));
-  Result("inproc.write_peak_mib", std::max(encode_mem.peak_mib, write_mem.peak_mib));
+  Result("inproc.encode_peak_mib", encode_mem.peak_mib);
+  Result("inproc.write_peak_mib", write_mem.peak_mib);
   Result("inproc.rss_before_write_mib", after_save.rss_mib);
 
   // Load, as recovery does it: read the file, decode, create the pool, restore.
