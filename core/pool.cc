@@ -842,7 +842,14 @@ bool LoadSparse(StateReader& r, SparseFeatures* x) {
 }  // namespace
 
 void Pool::SaveState(std::string* out) const {
+  StateWriter count;
+  SaveStateTo(count);
+  out->reserve(out->size() + count.bytes());
   StateWriter w(out);
+  SaveStateTo(w);
+}
+
+void Pool::SaveStateTo(StateWriter& w) const {
   w.Put(kPoolStateMagic);
   w.Put(kPoolStateVersion);
   w.PutVector(normalizer_.count);

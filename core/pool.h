@@ -121,7 +121,8 @@ class Pool {
   // seq) to `out`; Restore loads it into a pool made from the same spec. Applying the
   // same later frames to the saved pool and to the restored one gives bit-identical
   // answers. Restore fails with DATA_LOSS (naming the byte offset) on a damaged payload
-  // and leaves the pool unusable; callers discard it then.
+  // and leaves the pool unusable; callers discard it then. SaveState sizes `out` first
+  // (one counting pass), so the state is copied once.
   void SaveState(std::string* out) const;
   absl::Status RestoreState(absl::string_view state);
 
@@ -133,6 +134,7 @@ class Pool {
   BlockParams* mutable_block_params(absl::string_view stream, size_t b);
 
  private:
+  void SaveStateTo(StateWriter& w) const;
   struct StreamState {
     uint64_t last_seq = 0;
     bool has_prev = false;  // prev_x is a frame we may learn from

@@ -18,8 +18,12 @@
 
 namespace bellwether {
 
+// Appends to `out`; or, default-constructed, only counts the bytes it would append, so
+// that a caller can size its buffer before the real pass (a state of hundreds of MB
+// grown by doubling copies itself several times and peaks at twice its size).
 class StateWriter {
  public:
+  StateWriter() = default;
   explicit StateWriter(std::string* out) : out_(out) {}
 
   template <typename T>
@@ -27,13 +31,13 @@ class StateWriter {
     static_assert(std::is_trivially_copyable_v<T>);
     char buf[sizeof(T)];
     std::memcpy(buf, &v, sizeof(T));
-    out_->append(buf, sizeof(T));
+    Append(buf, sizeof(T));
   }
   template <typename T>
   void PutVector(const std::vector<T>& v) {
     static_assert(std::is_trivially_copyable_v<T>);
     Put<uint64_t>(v.size());
-    out_->append(reinterpret_cast<const char*>(v.data()), v.size() * sizeof(T));
+    Append(reinterpret_cast<const char*>(v.data()), v.size() * sizeof(T));
   }
   void PutVector(const std::vector<bool>& v) {
     Put<uint64_t>(v.size());
@@ -41,11 +45,20 @@ class StateWriter {
   }
   void PutString(absl::string_view s) {
     Put<uint64_t>(s.size());
-    out_->append(s.data(), s.size());
+    Append(s.data(), s.size());
   }
 
+  // Bytes put so far (by either kind of writer).
+  size_t bytes() const { return bytes_; }
+
  private:
-  std::string* out_;
+  void Append(const char* p, size_t n) {
+    if (out_ != nullptr) out_->append(p, n);
+    bytes_ += n;
+  }
+
+  std::string* out_ = nullptr;
+  size_t bytes_ = 0;
 };
 
 class StateReader {

@@ -112,6 +112,9 @@ TEST_P(PoolStateTest, RestoredPoolContinuesBitForBit) {
 
   std::string saved;
   (*a)->SaveState(&saved);
+  // SaveState counts before it copies: the string was reserved to exactly the state's
+  // size (libstdc++'s reserve gives that capacity), not grown by doubling.
+  EXPECT_EQ(saved.capacity(), saved.size());
   auto b = Pool::Create(*spec);
   ASSERT_TRUE(b.ok());
   ASSERT_TRUE((*b)->RestoreState(saved).ok()) << (*b)->RestoreState(saved);
