@@ -4,19 +4,6 @@
 #include <string>
 
 namespace bellwether::server {
-namespace {
-
-constexpr const char* kLabels[] = {"learning", "settled", "diverging", ""};
-
-int LabelIndex(const std::string& label) {
-  for (int i = 0; i < 3; ++i) {
-    if (label == kLabels[i]) return i;
-  }
-  return 3;
-}
-
-}  // namespace
-
 StreamHistory::StreamHistory(size_t questions, size_t points)
     : points_(std::max<size_t>(points, 1)), samples_(questions) {
   verified_.items.resize(std::max<size_t>(questions, 1) * points_);
@@ -37,7 +24,7 @@ void StreamHistory::AddSample(uint64_t seq, absl::Span<const Pool::ProgressSampl
   for (size_t q = 0; q < n; ++q) {
     const Pool::ProgressSample& p = samples[q];
     samples_[q].Push({seq, p.verified_rmse, p.td_error_rms, p.weight_change,
-                      LabelIndex(ProgressLabelName(p.label))});
+                      p.label});
   }
 }
 
@@ -65,7 +52,7 @@ void StreamHistory::CopyTo(size_t q, v1::QuestionHistory* out) const {
     p->set_verified_rmse(s.rmse);
     p->set_td_error_rms(s.td_rms);
     p->set_weight_change(s.weight_change);
-    p->set_label(kLabels[s.label]);
+    p->set_label(ProgressLabelName(s.label));
   });
 }
 

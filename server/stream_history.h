@@ -20,6 +20,7 @@
 #include "absl/types/span.h"
 #include "bellwether/v1/prediction.pb.h"
 #include "core/pool.h"
+#include "core/progress/learning_progress.h"
 
 namespace bellwether::server {
 
@@ -42,7 +43,7 @@ class StreamHistory {
   struct Sample {
     uint64_t seq;
     double rmse, td_rms, weight_change;
-    int label;  // index into the label names
+    ProgressLabel label;
   };
 
   // Records verified predictions, oldest first (plain structs: the writer thread gathers
