@@ -17,6 +17,7 @@
 #include "absl/time/time.h"
 #include "bellwether/v1/service.pb.h"
 #include "server/pool_registry.h"
+#include "server/thread_priority.h"
 #include "server/wal.h"
 
 namespace bellwether::server {
@@ -27,6 +28,8 @@ class Checkpointer {
     std::string dir;
     absl::Duration interval = absl::Minutes(5);
     uint64_t frames = 1'000'000;
+    // Of the checkpoint thread (it copies and writes the whole state).
+    BackgroundPriority priority = BackgroundPriority::kLow;
   };
 
   // `registry`, `wal` and `frames_applied` must outlive the checkpointer. Starts the

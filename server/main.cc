@@ -68,8 +68,15 @@ ABSL_FLAG(int32_t, history_streams, 16,
 ABSL_FLAG(int32_t, history_points, 360, "Points per question in each history ring");
 ABSL_FLAG(int32_t, writer_threads, 0,
           "Threads per pool applying batches of different streams at once (pools whose streams "
-          "learn independently: per-stream, no raw inputs); 0: one per hardware thread but one "
-          "(left for RPCs), at least 1, at most 8; 1: a single writer");
+          "learn independently: per-stream, no raw inputs); 0: one per hardware thread, at "
+          "least 1, at most 8 (they run at --background-priority, below the RPC threads); 1: a "
+          "single writer");
+ABSL_FLAG(bellwether::server::BackgroundPriority, background_priority,
+          bellwether::server::BackgroundPriority::kIdle,
+          "Scheduling of the learning and checkpoint threads: idle (SCHED_IDLE: they use only "
+          "CPU time no RPC thread of this daemon's cgroup wants, so Predict is answered at once "
+          "on busy cores), low (nice +10: for hosts where other busy processes share the "
+          "daemon's cgroup, which would starve idle threads) or normal");
 ABSL_FLAG(int32_t, metrics_max_questions, 200,
           "Per-question metric series for at most this many (pool, question) pairs; beyond "
           "it, pool-level aggregates only (bounds label cardinality)");
@@ -304,9 +311,9 @@ int Main(int argc, char** argv) {
   worker_options.writer_threads =
       absl::GetFlag(FLAGS_writer_threads) > 0
           ? static_cast<size_t>(std::min(absl::GetFlag(FLAGS_writer_threads), 64))
-          // Common practice: keep a core for the RPC threads, or Predict waits behind learning.
-          : std::clamp<size_t>(std::thread::hardware_concurrency(), 2, 9) - 1;
-  worker_options.applier_nice = bws::kBackgroundNice;
+          // The RPC threads need no core of their own: the appliers yield to them.
+          : std::clamp<size_t>(std::thread::hardware_concurrency(), 1, 8);
+  worker_options.applier_priority = absl::GetFlag(FLAGS_background_priority);
   std::atomic<uint64_t> frames_applied{0};
   worker_options.frames_applied_total = &frames_applied;
   std::unique_ptr<bws::Wal> wal;  // outlives the registry: workers' acks wait on it
@@ -404,6 +411,7 @@ int Main(int argc, char** argv) {
     copt.dir = state_dir;
     copt.interval = absl::Seconds(absl::GetFlag(FLAGS_checkpoint_seconds));
     copt.frames = static_cast<uint64_t>(std::max<int64_t>(1, absl::GetFlag(FLAGS_checkpoint_frames)));
+    copt.priority = absl::GetFlag(FLAGS_background_priority);
     checkpointer = std::make_unique<bws::Checkpointer>(&registry, wal.get(), &frames_applied, copt,
                                                        recovered->checkpoint_start_lsn);
     service.SetCheckpointer(checkpointer.get());

@@ -43,10 +43,22 @@ PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t gen
     Publish(stream);
   }
   InstallSink();
+  contexts_.push_back(&writer_context_);
+  for (size_t i = 1; i < options_.writer_threads; ++i) {
+    helper_contexts_.push_back(std::make_unique<ApplyContext>());
+    helper_contexts_.back()->workspace = pool_->NewWorkspace();
+    contexts_.push_back(helper_contexts_.back().get());
+  }
   thread_ = std::thread([this] {
-    LowerThisThreadsPriority(options_.applier_nice);
-    Run();
+    SetThisThreadsPriority(options_.applier_priority);
+    Run(&writer_context_);
   });
+  for (auto& context : helper_contexts_) {
+    helpers_.emplace_back([this, c = context.get()] {
+      SetThisThreadsPriority(options_.applier_priority);
+      Run(c);
+    });
+  }
 }
 
 PoolWorker::~PoolWorker() {
@@ -55,11 +67,7 @@ PoolWorker::~PoolWorker() {
     stopping_ = true;
   }
   thread_.join();
-  {
-    absl::MutexLock lock(&helpers_mu_);
-    for (auto& h : helpers_) h->stop = true;
-  }
-  for (auto& h : helpers_) h->thread.join();
+  for (std::thread& h : helpers_) h.join();
   // Batch callbacks still waiting for the log's flusher touch this worker: let them run.
   while (pending_durable_.load() > 0) absl::SleepFor(absl::Milliseconds(1));
 }
@@ -261,42 +269,77 @@ void PoolWorker::History(const std::string& stream, const std::vector<size_t>& q
   }
 }
 
-void PoolWorker::NextGroup(std::vector<Task>* group) {
-  group->clear();
-  absl::MutexLock lock(&queue_mu_);
-  queue_mu_.Await(absl::Condition(
-      +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->queue_mu_) {
-        return w->stopping_ || !w->queue_.empty();
-      },
-      this));
-  if (queue_.empty()) return;  // stopping with nothing left
-  group->push_back(std::move(queue_.front()));
-  queue_.pop_front();
-  auto is_batch = [](const Task& t) { return t.capture == nullptr && t.replace == nullptr; };
-  // A group: batches of distinct streams that exist already (a first batch creates its
-  // stream, which the others must not see half made), taken in queue order, so that each
-  // stream's batches still apply in the order they came.
-  if (is_batch(group->front()) && options_.writer_threads > 1 &&
-      pool_->supports_concurrent_streams() && pool_->has_stream(*group->front().batch.stream)) {
-    while (group->size() < options_.writer_threads && !queue_.empty() &&
-           is_batch(queue_.front())) {
-      const std::string& stream = *queue_.front().batch.stream;
-      if (!pool_->has_stream(stream)) break;
-      bool repeated = false;
-      for (const Task& t : *group) repeated |= *t.batch.stream == stream;
-      if (repeated) break;
-      group->push_back(std::move(queue_.front()));
-      queue_.pop_front();
-    }
-  }
-  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+bool PoolWorker::RunsAloneLocked(const Task& task) const {
+  if (task.capture != nullptr || task.replace != nullptr) return true;
+  const std::string& stream = *task.batch.stream;
+  return !pool_->supports_concurrent_streams() || !pool_->has_stream(stream) ||
+         !counts_.contains(stream);
 }
 
-void PoolWorker::Run() {
-  while (true) {
-    NextGroup(&group_);
-    if (group_.empty()) return;
-    Task& task = group_.front();
+int PoolWorker::RunnableLocked() const {
+  if (running_alone_ || running_ >= options_.writer_threads) return -1;
+  // Streams of older queued batches that cannot run yet: a younger batch of the same
+  // stream must wait behind them.
+  const std::string* held[16];
+  size_t num_held = 0;
+  auto among = [](const std::string& stream, const std::string* const* list, size_t n) {
+    for (size_t i = 0; i < n; ++i) {
+      if (*list[i] == stream) return true;
+    }
+    return false;
+  };
+  auto running = [this](const std::string& stream) {
+    for (const ApplyContext* c : contexts_) {
+      if (c->running && c->running_stream == stream) return true;
+    }
+    return false;
+  };
+  const int n = static_cast<int>(queue_.size());
+  for (int i = 0; i < n; ++i) {
+    const Task& t = queue_[static_cast<size_t>(i)];
+    // Nothing passes a task that runs alone, and it waits for everything before it.
+    if (RunsAloneLocked(t)) return i == 0 && running_ == 0 ? 0 : -1;
+    const std::string& stream = *t.batch.stream;
+    if (!among(stream, held, num_held) && (running_ == 0 || !running(stream))) return i;
+    if (!among(stream, held, num_held)) {
+      if (num_held == std::size(held)) return -1;  // look no further
+      held[num_held++] = &stream;
+    }
+  }
+  return -1;
+}
+
+bool PoolWorker::Take(Task* task, ApplyContext* context) {
+  absl::MutexLock lock(&queue_mu_);
+  queue_mu_.Await(absl::Condition(this, &PoolWorker::CanTakeLocked));
+  const int i = RunnableLocked();
+  if (i < 0) return false;  // stopping with nothing left
+  const auto it = queue_.begin() + i;
+  *task = std::move(*it);
+  if (RunsAloneLocked(*task)) {
+    running_alone_ = true;
+  } else {
+    if (running_ > 0) concurrent_batches_.fetch_add(1, std::memory_order_relaxed);
+    context->running_stream = *task->batch.stream;  // keeps its capacity: no allocation
+    context->running = true;
+  }
+  ++running_;
+  queue_.erase(it);
+  queue_depth_.store(queue_.size(), std::memory_order_relaxed);
+  return true;
+}
+
+void PoolWorker::Finish(const Task& task, ApplyContext* context) {
+  absl::MutexLock lock(&queue_mu_);
+  --running_;
+  running_alone_ = false;
+  context->running = false;
+  if (task.replace_done != nullptr) *task.replace_done = true;
+}
+
+void PoolWorker::Run(ApplyContext* context) {
+  Task task;
+  while (Take(&task, context)) {
     if (task.capture != nullptr) {
       if (deleted_.load()) {
         *task.replace_status = absl::NotFoundError(absl::StrCat("pool ", name_, " was deleted"));
@@ -306,62 +349,13 @@ void PoolWorker::Run() {
         task.capture->set_wal_lsn(last_lsn_.load());
         pool_->SaveState(task.capture->mutable_state());
       }
-      absl::MutexLock lock(&queue_mu_);
-      *task.replace_done = true;
     } else if (task.replace != nullptr) {
       ReplaceTask(task);
-      absl::MutexLock lock(&queue_mu_);
-      *task.replace_done = true;
     } else {
-      RunGroup(group_);
+      ApplyTask(task, *context);
     }
-  }
-}
-
-void PoolWorker::RunGroup(std::vector<Task>& group) {
-  if (group.size() == 1) {
-    ApplyTask(group.front(), writer_context_);
-    return;
-  }
-  // The group's threads only look their stream's counts up.
-  for (const Task& t : group) counts_.try_emplace(*t.batch.stream);
-  concurrent_batches_.fetch_add(group.size());
-  while (helpers_.size() + 1 < group.size()) {
-    auto h = std::make_unique<Helper>();
-    h->context.workspace = pool_->NewWorkspace();
-    Helper* raw = h.get();
-    helpers_.push_back(std::move(h));
-    raw->thread = std::thread([this, raw] { HelperLoop(raw); });
-  }
-  {
-    absl::MutexLock lock(&helpers_mu_);
-    for (size_t i = 1; i < group.size(); ++i) helpers_[i - 1]->task = &group[i];
-    helpers_busy_ = group.size() - 1;
-  }
-  ApplyTask(group.front(), writer_context_);
-  absl::MutexLock lock(&helpers_mu_);
-  helpers_mu_.Await(absl::Condition(
-      +[](PoolWorker* w) ABSL_EXCLUSIVE_LOCKS_REQUIRED(w->helpers_mu_) {
-        return w->helpers_busy_ == 0;
-      },
-      this));
-}
-
-void PoolWorker::HelperLoop(Helper* h) {
-  LowerThisThreadsPriority(options_.applier_nice);
-  while (true) {
-    Task* task;
-    {
-      absl::MutexLock lock(&helpers_mu_);
-      helpers_mu_.Await(absl::Condition(
-          +[](Helper* x) { return x->task != nullptr || x->stop; }, h));
-      if (h->task == nullptr) return;  // stopping
-      task = h->task;
-    }
-    ApplyTask(*task, h->context);
-    absl::MutexLock lock(&helpers_mu_);
-    h->task = nullptr;
-    --helpers_busy_;
+    Finish(task, context);
+    task = Task();
   }
 }
 
@@ -383,9 +377,9 @@ void PoolWorker::ReplaceTask(Task& task) {
   }
   pool_ = std::move(*next);
   estimate_ = EstimateState(pool_->spec());
-  // Scratch sized for the new spec (the helpers are idle between groups).
+  // Scratch sized for the new spec (the helpers wait while a spec change runs alone).
   writer_context_.workspace = pool_->NewWorkspace();
-  for (auto& h : helpers_) h->context.workspace = pool_->NewWorkspace();
+  for (auto& c : helper_contexts_) c->workspace = pool_->NewWorkspace();
   InstallSink();
   {
     absl::MutexLock lock(&generation_mu_);

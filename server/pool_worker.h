@@ -31,6 +31,7 @@
 #include "google/protobuf/arena.h"
 #include "server/pool_metrics.h"
 #include "server/stream_history.h"
+#include "server/thread_priority.h"
 #include "server/wal.h"
 
 namespace bellwether::server {
@@ -63,15 +64,17 @@ class PoolWorker {
     // 0: no limit.
     double max_stream_frames_per_second = 0;
     // Threads that apply batches of DIFFERENT streams at once (the writer and
-    // writer_threads - 1 helpers, started with the first such group), for pools whose
-    // streams learn independently (Pool::supports_concurrent_streams). A stream's
-    // batches still apply one at a time and in order; spec changes, checkpoints and a
-    // stream's first batch run alone. 1: one writer thread.
+    // writer_threads - 1 helpers), for pools whose streams learn independently
+    // (Pool::supports_concurrent_streams). Each thread takes the oldest queued batch
+    // whose stream no other thread is applying and that no older queued task must
+    // precede, so a stream's batches still apply one at a time and in order, and no
+    // thread waits for another's batch to end. Spec changes, checkpoints and a stream's
+    // first batch run alone. 1: one writer thread.
     size_t writer_threads = 1;
-    // Nice value added to the writer and helper threads (0: none; the daemon uses
-    // kBackgroundNice, server/thread_priority.h), so that RPC threads answering Predict
-    // run first when the cores are busy learning.
-    int applier_nice = 0;
+    // Scheduling priority of the writer and helper threads (server/thread_priority.h;
+    // the daemon's --background-priority), so that RPC threads answering Predict run
+    // first when the cores are busy learning.
+    BackgroundPriority applier_priority = BackgroundPriority::kNormal;
   };
 
   // The outcome of one batch.
@@ -138,7 +141,7 @@ class PoolWorker {
     uint64_t generation = 0;
     const v1::FrameBatch* batch = nullptr;
     bool want_predictions = false;
-    // Runs on the writer thread after the batch; must not block.
+    // Runs on the thread that applied the batch, after it; must not block.
     std::function<void(BatchResult)> done;
   };
 
@@ -205,24 +208,31 @@ class PoolWorker {
     // Verified points gathered during a batch, moved into `history_` after it.
     std::vector<StreamHistory::Verified> pending_points;
     const std::string* current_stream = nullptr;
-  };
-  // A helper thread of the writer. `task` (null when idle) and `stop` are guarded by the
-  // worker's helpers_mu_.
-  struct Helper {
-    ApplyContext context;
-    Task* task = nullptr;
-    bool stop = false;
-    std::thread thread;
+    // The stream of the batch this thread runs (a copy: the batch's own name may be
+    // freed once its callback ran), and whether it runs one; guarded by queue_mu_.
+    std::string running_stream;
+    bool running = false;
   };
   // The context of the batch this thread is applying, for the verification sink.
   static thread_local ApplyContext* current_context_;
 
-  void Run();
-  // Pops the next task, and with it the batch tasks right behind it that may apply at
-  // the same time (see Options::writer_threads) into `group`. Empty when stopping.
-  void NextGroup(std::vector<Task>* group);
-  void RunGroup(std::vector<Task>& group);
-  void HelperLoop(Helper* h);
+  // The loop of the writer and of each helper thread.
+  void Run(ApplyContext* context);
+  // Waits for a task this thread may run now (see Options::writer_threads), takes it out
+  // of the queue into `task` and marks it running. False when stopping with the queue
+  // empty.
+  bool Take(Task* task, ApplyContext* context);
+  // Marks the task done (its stream free again, or the pool no longer held alone).
+  void Finish(const Task& task, ApplyContext* context);
+  // The index of the first queued task that may run now, or -1.
+  int RunnableLocked() const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_);
+  // A task that must run with nothing else running: a spec change, a capture, a batch of
+  // a stream that does not exist yet, or any batch of a pool whose streams share what
+  // they learn. Reads the pool: only while no task runs alone.
+  bool RunsAloneLocked(const Task& task) const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_);
+  bool CanTakeLocked() const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_) {
+    return RunnableLocked() >= 0 || (stopping_ && queue_.empty());
+  }
   void ApplyTask(Task& task, ApplyContext& context);
   void ReplaceTask(Task& task);
   void Publish(const std::string& stream);
@@ -263,8 +273,8 @@ class PoolWorker {
     uint64_t applied = 0;
     uint64_t rejected = 0;
   };
-  // Entries are added only by the writer between groups (for a group's streams before
-  // it starts), so the threads of a group only look theirs up.
+  // Entries are added only by a task that runs alone (a stream's first batch, or a
+  // batch whose stream has none yet runs alone), so concurrent threads only look up.
   absl::flat_hash_map<std::string, StreamCounts> counts_;
 
   mutable absl::Mutex history_mu_;
@@ -278,11 +288,14 @@ class PoolWorker {
   absl::flat_hash_map<std::string, uint64_t> durable_seq_ ABSL_GUARDED_BY(durable_mu_);
 
   ApplyContext writer_context_;  // the writer thread's
-  std::vector<Task> group_;      // writer thread: the tasks being applied
-  // Helpers (Options::writer_threads - 1), started with the first group of two or more.
-  absl::Mutex helpers_mu_;
-  std::vector<std::unique_ptr<Helper>> helpers_;  // the vector: writer thread only
-  size_t helpers_busy_ ABSL_GUARDED_BY(helpers_mu_) = 0;
+  // Helper threads (Options::writer_threads - 1) and their contexts.
+  std::vector<std::unique_ptr<ApplyContext>> helper_contexts_;
+  std::vector<std::thread> helpers_;
+  // Every thread's context (writer first), for the running streams. Fixed after start.
+  std::vector<ApplyContext*> contexts_;
+  // How many tasks run now, and whether one holds the pool alone.
+  size_t running_ ABSL_GUARDED_BY(queue_mu_) = 0;
+  bool running_alone_ ABSL_GUARDED_BY(queue_mu_) = false;
   std::atomic<uint64_t> concurrent_batches_{0};
   std::thread thread_;
 };

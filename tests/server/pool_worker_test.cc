@@ -2,14 +2,15 @@
 #include "server/pool_worker.h"
 
 #include <memory>
-#include <thread>
 #include <string>
+#include <thread>
 #include <vector>
 
+#include "absl/strings/str_cat.h"
 #include "absl/synchronization/notification.h"
+#include "absl/time/clock.h"
 #include "core/io/csv_frame_reader.h"
 #include "core/io/spec_json.h"
-#include "absl/time/clock.h"
 #include "core/pool.h"
 #include "gmock/gmock.h"
 #include "gtest/gtest.h"
@@ -198,6 +199,89 @@ TEST(PoolWorkerGroups, ConcurrentWritersLearnWhatOneThreadLearns) {
     ASSERT_NE(snap, nullptr);
     EXPECT_EQ(snap->frames_applied, static_cast<uint64_t>(kFramesPerStream));
   }
+}
+
+// With two writer threads, one stream's batch that takes long (here: its callback holds
+// its thread) must not hold up another stream's batches behind it, and a capture (which
+// runs alone) waits for it and is not passed by batches queued after it. Each thread
+// takes the next batch it may run; none waits for a group to end.
+TEST(PoolWorkerQueue, AStreamsLongBatchDoesNotHoldUpOtherStreams) {
+  auto pool = Pool::Create(testing::OneHotChainSpec(4, 0.9, 0.0, 0.1));
+  ASSERT_TRUE(pool.ok()) << pool.status();
+  ASSERT_TRUE((*pool)->supports_concurrent_streams());
+  PoolWorker::Options options;
+  options.queue_capacity = 64;
+  options.writer_threads = 2;
+  PoolWorker worker(*std::move(pool), options);
+  const auto g = worker.current();
+  auto columns = ColumnMap::Create(g->signal_names, {});
+  ASSERT_TRUE(columns.ok());
+  const std::string slow = "slow", fast = "fast";
+  std::vector<v1::FrameBatch> batches;
+  for (uint64_t seq = 1; seq <= 8; ++seq) batches.push_back(OneFrame(seq));
+  // First batches create the streams (each runs alone).
+  ASSERT_TRUE(worker.ApplyBatch(slow, *columns, g->id, batches[0]).status.ok());
+  ASSERT_TRUE(worker.ApplyBatch(fast, *columns, g->id, batches[0]).status.ok());
+
+  absl::Notification slow_started, release_slow;
+  absl::Mutex mu;
+  std::vector<std::string> order;  // which batch finished, in order
+  auto submit = [&](const std::string& stream, size_t i, bool hold) {
+    PoolWorker::BatchTask t;
+    t.stream = &stream;
+    t.columns = &*columns;
+    t.generation = g->id;
+    t.batch = &batches[i];
+    t.done = [&, hold, i](PoolWorker::BatchResult r) {
+      EXPECT_TRUE(r.status.ok()) << r.status;
+      if (hold) {
+        slow_started.Notify();
+        release_slow.WaitForNotificationWithTimeout(absl::Seconds(30));
+      }
+      absl::MutexLock lock(&mu);
+      order.push_back(absl::StrCat(stream, i));
+    };
+    ASSERT_TRUE(worker.Submit(std::move(t)).ok());
+  };
+  submit(slow, 1, /*hold=*/true);
+  ASSERT_TRUE(slow_started.WaitForNotificationWithTimeout(absl::Seconds(30)));
+  submit(slow, 2, false);  // must wait behind slow1: same stream
+  for (size_t i = 1; i <= 4; ++i) submit(fast, i, false);
+  {
+    // The fast stream's four batches finish while slow1 still holds its thread.
+    absl::MutexLock lock(&mu);
+    const bool fast_done = mu.AwaitWithTimeout(
+        absl::Condition(
+            +[](std::vector<std::string>* o) { return o->size() >= 4; }, &order),
+        absl::Seconds(30));
+    ASSERT_TRUE(fast_done) << "the fast stream waited for the slow stream's batch";
+    EXPECT_EQ(order, (std::vector<std::string>{"fast1", "fast2", "fast3", "fast4"}));
+  }
+  // A capture queued now waits for slow1 (and slow2, queued before it); a batch queued
+  // after the capture does not pass it.
+  absl::Notification captured;
+  std::thread capture([&] {
+    auto c = worker.Capture();
+    EXPECT_TRUE(c.ok()) << c.status();
+    captured.Notify();
+  });
+  while (worker.queue_depth() < 2) absl::SleepFor(absl::Milliseconds(1));  // slow2, capture
+  submit(fast, 5, false);
+  absl::SleepFor(absl::Milliseconds(50));
+  EXPECT_FALSE(captured.HasBeenNotified()) << "the capture ran beside a running batch";
+  {
+    absl::MutexLock lock(&mu);
+    EXPECT_EQ(order.size(), 4u) << "a batch passed the capture queued before it";
+  }
+  release_slow.Notify();
+  capture.join();
+  const PoolWorker::BatchResult last = worker.ApplyBatch(fast, *columns, g->id, batches[6]);
+  ASSERT_TRUE(last.status.ok()) << last.status;
+  absl::MutexLock lock(&mu);
+  EXPECT_EQ(order, (std::vector<std::string>{"fast1", "fast2", "fast3", "fast4", "slow1", "slow2",
+                                             "fast5"}));
+  EXPECT_EQ(worker.Snapshot(slow)->frames_applied, 3u);
+  EXPECT_EQ(worker.Snapshot(fast)->frames_applied, 7u);
 }
 
 TEST(PoolWorkerQueue, DeletedPoolRefusesBatches) {
