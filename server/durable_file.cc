@@ -31,22 +31,71 @@ absl::Status SyncDir(const std::string& dir) {
 
 DurableFileWriter::~DurableFileWriter() { Abandon(); }
 
+void DurableFileWriter::FreeDeleter::operator()(char* p) const { std::free(p); }
+
 void DurableFileWriter::Abandon() {
+  direct_buffer_.reset();
+  head_.reset();
   if (fd_ < 0) return;
   close(fd_);
   fd_ = -1;
   unlink(tmp_.c_str());
 }
 
-absl::Status DurableFileWriter::Open(const std::string& dir, const std::string& name) {
+absl::Status DurableFileWriter::Open(const std::string& dir, const std::string& name,
+                                     const OpenOptions& options) {
   Abandon();
   dir_ = dir;
   name_ = name;
   tmp_ = absl::StrCat(dir, "/.", name, ".tmp");
   size_ = 0;
-  fd_ = open(tmp_.c_str(), O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC, 0644);
-  if (fd_ < 0)
+  buffered_ = 0;
+  flushed_ = 0;
+  head_size_ = 0;
+  constexpr int kFlags = O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC;
+  if (options.bypass_cache) {
+    fd_ = open(tmp_.c_str(), kFlags | O_DIRECT, 0644);
+    if (fd_ >= 0) {
+      direct_buffer_.reset(
+          static_cast<char*>(std::aligned_alloc(kDirectBlock, kDirectBufferBytes)));
+      head_.reset(static_cast<char*>(std::aligned_alloc(kDirectBlock, kDirectBlock)));
+      if (direct_buffer_ == nullptr || head_ == nullptr) {
+        return WriteError("allocate a write buffer for", ENOMEM);
+      }
+    } else if (errno != EINVAL) {
+      return absl::UnavailableError(absl::StrCat("open ", tmp_, ": ", std::strerror(errno)));
+    }
+  }
+  if (fd_ < 0) fd_ = open(tmp_.c_str(), kFlags, 0644);
+  if (fd_ < 0) {
     return absl::UnavailableError(absl::StrCat("open ", tmp_, ": ", std::strerror(errno)));
+  }
+  if (options.expected_size > 0) {
+    const int err = posix_fallocate(fd_, 0, static_cast<off_t>(options.expected_size));
+    if (err == ENOSPC || err == EDQUOT) return WriteError("reserve space for", err);
+    // Other errors (a file system without fallocate): the writes allocate as they go.
+  }
+  return absl::OkStatus();
+}
+
+absl::Status DurableFileWriter::PwriteAll(const char* data, size_t n, uint64_t offset) {
+  size_t written = 0;
+  while (written < n) {
+    const ssize_t w =
+        pwrite(fd_, data + written, n - written, static_cast<off_t>(offset + written));
+    if (w < 0) {
+      if (errno == EINTR) continue;
+      return WriteError("write", errno);
+    }
+    written += static_cast<size_t>(w);
+  }
+  return absl::OkStatus();
+}
+
+absl::Status DurableFileWriter::FlushDirect(size_t n) {
+  if (absl::Status s = PwriteAll(direct_buffer_.get(), n, flushed_); !s.ok()) return s;
+  flushed_ += n;
+  buffered_ -= std::min(buffered_, n);
   return absl::OkStatus();
 }
 
@@ -60,6 +109,24 @@ absl::Status DurableFileWriter::WriteError(const char* op, int err) {
 
 absl::Status DurableFileWriter::Append(absl::string_view data) {
   if (fd_ < 0) return absl::FailedPreconditionError(absl::StrCat("write ", tmp_, ": not open"));
+  if (direct()) {
+    if (head_size_ < kDirectBlock) {
+      const size_t n = std::min(data.size(), kDirectBlock - head_size_);
+      std::memcpy(head_.get() + head_size_, data.data(), n);
+      head_size_ += n;
+    }
+    while (!data.empty()) {
+      const size_t piece = std::min(data.size(), kDirectBufferBytes - buffered_);
+      std::memcpy(direct_buffer_.get() + buffered_, data.data(), piece);
+      buffered_ += piece;
+      size_ += piece;
+      data.remove_prefix(piece);
+      if (buffered_ == kDirectBufferBytes) {
+        if (absl::Status s = FlushDirect(kDirectBufferBytes); !s.ok()) return s;
+      }
+    }
+    return absl::OkStatus();
+  }
   size_t written = 0;
   while (written < data.size()) {
     const size_t piece = std::min(data.size() - written, kDurableWriteChunk);
@@ -81,21 +148,33 @@ absl::Status DurableFileWriter::WriteAt(uint64_t offset, absl::string_view data)
                                               " bytes at offset ", offset, " lie beyond the ",
                                               size_, " bytes written"));
   }
-  size_t written = 0;
-  while (written < data.size()) {
-    const ssize_t n = pwrite(fd_, data.data() + written, data.size() - written,
-                             static_cast<off_t>(offset + written));
-    if (n < 0) {
-      if (errno == EINTR) continue;
-      return WriteError("pwrite", errno);
-    }
-    written += static_cast<size_t>(n);
+  if (!direct()) return PwriteAll(data.data(), data.size(), offset);
+  if (offset >= flushed_) {  // not written out yet
+    std::memcpy(direct_buffer_.get() + (offset - flushed_), data.data(), data.size());
+  } else if (offset + data.size() > kDirectBlock) {
+    return absl::OutOfRangeError(absl::StrCat("write ", tmp_, ": ", data.size(),
+                                              " bytes at offset ", offset,
+                                              " were written out already (direct write)"));
+  }
+  if (offset < kDirectBlock) {
+    const size_t n = std::min<uint64_t>(data.size(), kDirectBlock - offset);
+    std::memcpy(head_.get() + offset, data.data(), n);
+    if (offset < flushed_) return PwriteAll(head_.get(), kDirectBlock, 0);  // a whole block
   }
   return absl::OkStatus();
 }
 
 absl::Status DurableFileWriter::Commit() {
   if (fd_ < 0) return absl::FailedPreconditionError(absl::StrCat("commit ", tmp_, ": not open"));
+  if (direct()) {
+    // The tail as whole blocks (zero padded); the truncate below cuts the padding.
+    const size_t padded = (buffered_ + kDirectBlock - 1) / kDirectBlock * kDirectBlock;
+    std::memset(direct_buffer_.get() + buffered_, 0, padded - buffered_);
+    if (absl::Status s = FlushDirect(padded); !s.ok()) return s;
+    direct_buffer_.reset();
+    head_.reset();
+  }
+  if (ftruncate(fd_, static_cast<off_t>(size_)) != 0) return WriteError("truncate", errno);
   if (fsync(fd_) != 0) FatalSync(absl::StrCat("fsync of ", tmp_), errno);
   close(fd_);
   fd_ = -1;

@@ -195,8 +195,11 @@ absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir,
   absl::StatusOr<size_t> size = CheckpointPayloadSize(checkpoint);
   if (!size.ok()) return size.status();
   DurableFileWriter file;
+  DurableFileWriter::OpenOptions options;
+  options.expected_size = kCheckpointHeader + *size;
+  options.bypass_cache = true;  // written once, read only at recovery
   if (absl::Status s =
-          file.Open(dir, absl::StrFormat("checkpoint-%020d.bwc", checkpoint.start_lsn()));
+          file.Open(dir, absl::StrFormat("checkpoint-%020d.bwc", checkpoint.start_lsn()), options);
       !s.ok()) {
     return s;
   }

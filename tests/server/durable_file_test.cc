@@ -1,5 +1,6 @@
 #include "server/durable_file.h"
 
+#include <cstdio>
 #include <filesystem>
 #include <fstream>
 #include <sstream>
@@ -39,7 +40,10 @@ TEST(DurableFile, PiecesLargerThanAChunkLandInOrderAndAHeaderIsPatched) {
   const std::string dir = testing::MakeTempDir("durable_pieces");
   const std::string body = Pattern(3 * kDurableWriteChunk + 17);
   DurableFileWriter w;
-  ASSERT_TRUE(w.Open(dir, "f.bin").ok());
+  // More space reserved than will be written: the rest goes at Commit.
+  DurableFileWriter::OpenOptions options;
+  options.expected_size = 4 + body.size() + 5000;
+  ASSERT_TRUE(w.Open(dir, "f.bin", options).ok());
   ASSERT_TRUE(w.Append("HDR0").ok());
   ASSERT_TRUE(w.Append(absl::string_view(body).substr(0, 5)).ok());
   ASSERT_TRUE(w.Append(absl::string_view(body).substr(5)).ok());
@@ -50,6 +54,40 @@ TEST(DurableFile, PiecesLargerThanAChunkLandInOrderAndAHeaderIsPatched) {
   ASSERT_TRUE(w.Commit().ok());
   EXPECT_EQ(Read(dir + "/f.bin"), "HDR1" + body);
   EXPECT_EQ(FilesIn(dir), 1u) << "the temporary file is gone after the rename";
+}
+
+// Around the page cache (O_DIRECT where the file system takes it, else ordinary writes):
+// the same bytes, with a header patched after the first buffer went out, a tail that is
+// not a whole block, and space reserved beyond the final size given back.
+TEST(DurableFile, BypassingTheCacheWritesTheSameBytes) {
+  const std::string dir = testing::MakeTempDir("durable_direct");
+  const std::string body = Pattern(2 * DurableFileWriter::kDirectBufferBytes + 4097 + 13);
+  DurableFileWriter w;
+  DurableFileWriter::OpenOptions options;
+  options.bypass_cache = true;
+  options.expected_size = 8 + body.size() + 5000;  // more than will be written
+  ASSERT_TRUE(w.Open(dir, "f.bin", options).ok());
+  std::printf("direct writes: %s\n", w.direct() ? "yes" : "no (file system refused O_DIRECT)");
+  ASSERT_TRUE(w.Append("HEADER00").ok());
+  for (size_t at = 0; at < body.size(); at += 70000) {
+    ASSERT_TRUE(w.Append(absl::string_view(body).substr(at, 70000)).ok());
+  }
+  ASSERT_TRUE(w.WriteAt(6, "42").ok());
+  if (w.direct()) {
+    // Written out already and past the first block: refused, naming the offset.
+    const absl::Status late = w.WriteAt(5000, "x");
+    EXPECT_EQ(late.code(), absl::StatusCode::kOutOfRange);
+    EXPECT_THAT(late.message(), HasSubstr("offset 5000"));
+  }
+  // The unwritten tail can still be patched.
+  const uint64_t tail = w.size() - 3;
+  ASSERT_TRUE(w.WriteAt(tail, "end").ok());
+  ASSERT_TRUE(w.Commit().ok());
+  std::string expected = "HEADER42" + body;
+  expected.replace(expected.size() - 3, 3, "end");
+  const std::string got = Read(dir + "/f.bin");
+  EXPECT_EQ(got.size(), expected.size());
+  EXPECT_TRUE(got == expected) << "the file differs from what was written";
 }
 
 TEST(DurableFile, AnAbandonedWriterLeavesTheOldFileAndNoTemporary) {

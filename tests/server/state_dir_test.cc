@@ -235,7 +235,8 @@ TEST(StateDir, StreamedCheckpointFileEqualsTheEncodedBytes) {
   v1::PoolCheckpoint* big = c.add_pools();
   *big->mutable_spec() = c.pools(0).spec();
   big->mutable_spec()->set_name("big");
-  std::string state(5 * kDurableWriteChunk + 1234, '\0');
+  // Over two direct-write buffers, so the header is rewritten after it went out.
+  std::string state(2 * DurableFileWriter::kDirectBufferBytes + 1234, '\0');
   for (size_t i = 0; i < state.size(); ++i) state[i] = static_cast<char>((i * 2654435761u) >> 13);
   big->set_state(state);
   c.set_start_lsn(last + 100);
