@@ -18,6 +18,7 @@ Checkpointer::Checkpointer(PoolRegistry* registry, Wal* wal,
   previous_start_lsn_ = loaded_start_lsn;
   frames_at_last_ = frames_applied_->load();
   thread_ = std::thread([this] {
+    NameThisThread("bw-checkpoint");
     SetThisThreadsPriority(options_.priority);  // writing a checkpoint is background work
     Loop();
   });

@@ -50,11 +50,13 @@ PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t gen
     contexts_.push_back(helper_contexts_.back().get());
   }
   thread_ = std::thread([this] {
+    NameThisThread("bw-apply");
     SetThisThreadsPriority(options_.applier_priority);
     Run(&writer_context_);
   });
   for (auto& context : helper_contexts_) {
     helpers_.emplace_back([this, c = context.get()] {
+      NameThisThread("bw-apply");
       SetThisThreadsPriority(options_.applier_priority);
       Run(c);
     });

@@ -1,5 +1,6 @@
 #include "server/thread_priority.h"
 
+#include <pthread.h>
 #include <sched.h>
 #include <sys/resource.h>
 #include <sys/syscall.h>
@@ -40,6 +41,12 @@ std::string AbslUnparseFlag(BackgroundPriority priority) {
       return "normal";
   }
   return "normal";
+}
+
+void NameThisThread(const char* name) {
+  char truncated[16] = {};
+  for (size_t i = 0; i + 1 < sizeof(truncated) && name[i] != '\0'; ++i) truncated[i] = name[i];
+  pthread_setname_np(pthread_self(), truncated);
 }
 
 void SetThisThreadsPriority(BackgroundPriority priority) {

@@ -32,6 +32,10 @@ enum class BackgroundPriority {
 bool AbslParseFlag(absl::string_view text, BackgroundPriority* priority, std::string* error);
 std::string AbslUnparseFlag(BackgroundPriority priority);
 
+// Names the calling thread (at most 15 characters show), so `top -H` and perf tell the
+// daemon's threads apart; a thread otherwise inherits its creator's name.
+void NameThisThread(const char* name);
+
 // Applies `priority` to the calling thread. Best effort: on failure only the scheduling
 // differs.
 void SetThisThreadsPriority(BackgroundPriority priority);
