@@ -23,6 +23,13 @@ std::string ReadAll(const std::string& path) {
 
 }  // namespace
 
+std::string ReadWholeFile(const std::string& path) {
+  std::ifstream in(path, std::ios::binary);
+  std::stringstream s;
+  s << in.rdbuf();
+  return s.str();
+}
+
 std::string MakeTempDir(const std::string& tag) {
   const char* base = std::getenv("TEST_TMPDIR");
   std::string tmpl = std::string(base ? base : "/tmp") + "/bw-" + tag + "-XXXXXX";

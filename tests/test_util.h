@@ -17,6 +17,9 @@ struct CommandResult {
 // Runs `argv` (argv[0] a path) to completion, capturing its output.
 CommandResult RunCommand(const std::vector<std::string>& argv);
 
+// A file's whole contents ("" if it cannot be read).
+std::string ReadWholeFile(const std::string& path);
+
 // A fresh empty directory under the test's temporary directory.
 std::string MakeTempDir(const std::string& tag);
 

@@ -15,13 +15,6 @@ namespace {
 
 using ::testing::HasSubstr;
 
-std::string Read(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  std::stringstream s;
-  s << in.rdbuf();
-  return s.str();
-}
-
 size_t FilesIn(const std::string& dir) {
   size_t n = 0;
   for ([[maybe_unused]] const auto& e : std::filesystem::directory_iterator(dir)) ++n;
@@ -52,7 +45,7 @@ TEST(DurableFile, PiecesLargerThanAChunkLandInOrderAndAHeaderIsPatched) {
   // Not in place before Commit.
   EXPECT_FALSE(std::filesystem::exists(dir + "/f.bin"));
   ASSERT_TRUE(w.Commit().ok());
-  EXPECT_EQ(Read(dir + "/f.bin"), "HDR1" + body);
+  EXPECT_EQ(testing::ReadWholeFile(dir + "/f.bin"), "HDR1" + body);
   EXPECT_EQ(FilesIn(dir), 1u) << "the temporary file is gone after the rename";
 }
 
@@ -85,7 +78,7 @@ TEST(DurableFile, BypassingTheCacheWritesTheSameBytes) {
   ASSERT_TRUE(w.Commit().ok());
   std::string expected = "HEADER42" + body;
   expected.replace(expected.size() - 3, 3, "end");
-  const std::string got = Read(dir + "/f.bin");
+  const std::string got = testing::ReadWholeFile(dir + "/f.bin");
   EXPECT_EQ(got.size(), expected.size());
   EXPECT_TRUE(got == expected) << "the file differs from what was written";
 }
@@ -98,7 +91,7 @@ TEST(DurableFile, AnAbandonedWriterLeavesTheOldFileAndNoTemporary) {
     ASSERT_TRUE(w.Open(dir, "f.bin").ok());
     ASSERT_TRUE(w.Append(Pattern(kDurableWriteChunk + 1)).ok());
   }  // no Commit
-  EXPECT_EQ(Read(dir + "/f.bin"), "old contents");
+  EXPECT_EQ(testing::ReadWholeFile(dir + "/f.bin"), "old contents");
   EXPECT_EQ(FilesIn(dir), 1u);
 }
 
@@ -112,7 +105,7 @@ TEST(DurableFile, WritingPastTheEndOrIntoAMissingDirectoryIsAnErrorNamingTheFile
   EXPECT_THAT(past.message(), HasSubstr(".f.bin.tmp"));
   EXPECT_THAT(past.message(), HasSubstr("offset 2"));
   ASSERT_TRUE(w.Commit().ok());
-  EXPECT_EQ(Read(dir + "/f.bin"), "abcd");
+  EXPECT_EQ(testing::ReadWholeFile(dir + "/f.bin"), "abcd");
 
   DurableFileWriter missing;
   absl::Status open = missing.Open(dir + "/no/such/dir", "f.bin");

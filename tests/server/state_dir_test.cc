@@ -26,13 +26,6 @@ namespace {
 using ::testing::AnyOf;
 using ::testing::HasSubstr;
 
-std::string Read(const std::string& path) {
-  std::ifstream in(path, std::ios::binary);
-  std::stringstream b;
-  b << in.rdbuf();
-  return b.str();
-}
-
 void Write(const std::string& path, const std::string& bytes) {
   std::ofstream out(path, std::ios::binary | std::ios::trunc);
   out << bytes;
@@ -113,7 +106,8 @@ TEST(StateDir, EveryTruncationAndBitFlipOfTheLogLoadsAPrefixOrRefuses) {
   const uint64_t last = MakeState(dir);
   const std::string wal = OnlyFile(dir, "wal-");
   const std::string checkpoint = OnlyFile(dir, "checkpoint-");
-  const std::string good_wal = Read(wal), good_checkpoint = Read(checkpoint);
+  const std::string good_wal = testing::ReadWholeFile(wal),
+                    good_checkpoint = testing::ReadWholeFile(checkpoint);
   ASSERT_GT(good_wal.size(), 100u);
   size_t cases = 0, refused = 0;
   auto check = [&](const std::string& damaged, const std::string& what) {
@@ -151,7 +145,7 @@ TEST(StateDir, EveryBitFlipOfTheCheckpointFallsBack) {
   const std::string dir = testing::MakeTempDir("checkpoint_damage");
   const uint64_t last = MakeState(dir);
   const std::string checkpoint = OnlyFile(dir, "checkpoint-");
-  const std::string good = Read(checkpoint);
+  const std::string good = testing::ReadWholeFile(checkpoint);
   size_t cases = 0;
   for (size_t pos = 0; pos < good.size(); ++pos) {
     for (int bit = 0; bit < 8; bit += 3) {
@@ -189,7 +183,7 @@ TEST(StateDir, DamageBeforeTheLastSegmentIsRefusedNamingFileAndOffset) {
   for (const auto& e : std::filesystem::directory_iterator(dir)) {
     if (e.path().extension() == ".bwc") std::filesystem::remove(e.path());
   }
-  const std::string first = segments.front(), good = Read(first);
+  const std::string first = segments.front(), good = testing::ReadWholeFile(first);
   size_t refused = 0;
   for (size_t pos = 0; pos < good.size(); ++pos) {
     std::string d = good;
@@ -210,13 +204,13 @@ TEST(StateDir, TornTailIsCutSoTheNextStartIsClean) {
   const std::string dir = testing::MakeTempDir("torn_tail");
   MakeState(dir);
   const std::string wal = OnlyFile(dir, "wal-");
-  const std::string good = Read(wal);
+  const std::string good = testing::ReadWholeFile(wal);
   Write(wal, good + std::string("\x30\x00\x00\x00\xde\xad", 6));
   auto r = Recover(dir);
   ASSERT_TRUE(r.ok());
   ASSERT_FALSE(r->warnings.empty());
   EXPECT_THAT(r->warnings.back(), HasSubstr("torn write"));
-  EXPECT_EQ(Read(wal), good);  // cut back to the whole records
+  EXPECT_EQ(testing::ReadWholeFile(wal), good);  // cut back to the whole records
 }
 
 // Protobuf cannot hold a message over 2 GiB: such a checkpoint is refused, never written
@@ -228,7 +222,7 @@ TEST(StateDir, StreamedCheckpointFileEqualsTheEncodedBytes) {
   const std::string dir = testing::MakeTempDir("streamed");
   const uint64_t last = MakeState(dir);
   const std::string first = OnlyFile(dir, "checkpoint-");
-  auto decoded = DecodeCheckpoint(Read(first));
+  auto decoded = DecodeCheckpoint(testing::ReadWholeFile(first));
   ASSERT_TRUE(decoded.ok()) << decoded.status();
   v1::Checkpoint c = *decoded;
   // A second pool whose state spans several write blocks and ends mid-block.
@@ -245,7 +239,7 @@ TEST(StateDir, StreamedCheckpointFileEqualsTheEncodedBytes) {
   auto encoded = EncodeCheckpoint(c);
   ASSERT_TRUE(encoded.ok()) << encoded.status();
   const std::string file = absl::StrFormat("%s/checkpoint-%020d.bwc", dir, last + 100);
-  const std::string bytes = Read(file);
+  const std::string bytes = testing::ReadWholeFile(file);
   EXPECT_EQ(*written, bytes.size());
   ASSERT_EQ(bytes.size(), encoded->size());
   EXPECT_TRUE(bytes == *encoded) << "streamed file differs from the encoded bytes";
