@@ -35,7 +35,6 @@ PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t gen
                        uint64_t last_lsn)
     : name_(pool->name()), options_(options), pool_(std::move(pool)), last_lsn_(last_lsn) {
   estimate_ = EstimateState(pool_->spec());
-  writer_context_.workspace = pool_->NewWorkspace();
   generation_ = MakeGeneration(generation);
   for (const std::string& stream : pool_->stream_names()) {
     // Recovered streams: everything applied came from the log, so it is durable.
@@ -43,19 +42,12 @@ PoolWorker::PoolWorker(std::unique_ptr<Pool> pool, Options options, uint64_t gen
     Publish(stream);
   }
   InstallSink();
-  contexts_.push_back(&writer_context_);
-  for (size_t i = 1; i < options_.writer_threads; ++i) {
-    helper_contexts_.push_back(std::make_unique<ApplyContext>());
-    helper_contexts_.back()->workspace = pool_->NewWorkspace();
-    contexts_.push_back(helper_contexts_.back().get());
+  for (size_t i = 0; i < std::max<size_t>(options_.writer_threads, 1); ++i) {
+    contexts_.push_back(std::make_unique<ApplyContext>());
+    contexts_.back()->workspace = pool_->NewWorkspace();
   }
-  thread_ = std::thread([this] {
-    NameThisThread("bw-apply");
-    SetThisThreadsPriority(options_.applier_priority);
-    Run(&writer_context_);
-  });
-  for (auto& context : helper_contexts_) {
-    helpers_.emplace_back([this, c = context.get()] {
+  for (auto& context : contexts_) {
+    threads_.emplace_back([this, c = context.get()] {
       NameThisThread("bw-apply");
       SetThisThreadsPriority(options_.applier_priority);
       Run(c);
@@ -68,8 +60,7 @@ PoolWorker::~PoolWorker() {
     absl::MutexLock lock(&queue_mu_);
     stopping_ = true;
   }
-  thread_.join();
-  for (std::thread& h : helpers_) h.join();
+  for (std::thread& t : threads_) t.join();
   // Batch callbacks still waiting for the log's flusher touch this worker: let them run.
   while (pending_durable_.load() > 0) absl::SleepFor(absl::Milliseconds(1));
 }
@@ -278,35 +269,22 @@ bool PoolWorker::RunsAloneLocked(const Task& task) const {
          !counts_.contains(stream);
 }
 
-int PoolWorker::RunnableLocked() const {
-  if (running_alone_ || running_ >= options_.writer_threads) return -1;
-  // Streams of older queued batches that cannot run yet: a younger batch of the same
-  // stream must wait behind them.
-  const std::string* held[16];
-  size_t num_held = 0;
-  auto among = [](const std::string& stream, const std::string* const* list, size_t n) {
-    for (size_t i = 0; i < n; ++i) {
-      if (*list[i] == stream) return true;
-    }
-    return false;
-  };
+int PoolWorker::RunnableLocked(bool* alone) const {
+  if (running_alone_ || running_ >= contexts_.size()) return -1;
   auto running = [this](const std::string& stream) {
-    for (const ApplyContext* c : contexts_) {
+    for (const auto& c : contexts_) {
       if (c->running && c->running_stream == stream) return true;
     }
     return false;
   };
-  const int n = static_cast<int>(queue_.size());
-  for (int i = 0; i < n; ++i) {
-    const Task& t = queue_[static_cast<size_t>(i)];
+  // An older queued batch that cannot run has a running stream (nothing else stops it
+  // below), so a younger batch of the same stream is held back by the same test.
+  for (size_t i = 0; i < queue_.size(); ++i) {
+    const Task& t = queue_[i];
     // Nothing passes a task that runs alone, and it waits for everything before it.
-    if (RunsAloneLocked(t)) return i == 0 && running_ == 0 ? 0 : -1;
-    const std::string& stream = *t.batch.stream;
-    if (!among(stream, held, num_held) && (running_ == 0 || !running(stream))) return i;
-    if (!among(stream, held, num_held)) {
-      if (num_held == std::size(held)) return -1;  // look no further
-      held[num_held++] = &stream;
-    }
+    *alone = RunsAloneLocked(t);
+    if (*alone) return i == 0 && running_ == 0 ? 0 : -1;
+    if (running_ == 0 || !running(*t.batch.stream)) return static_cast<int>(i);
   }
   return -1;
 }
@@ -314,11 +292,12 @@ int PoolWorker::RunnableLocked() const {
 bool PoolWorker::Take(Task* task, ApplyContext* context) {
   absl::MutexLock lock(&queue_mu_);
   queue_mu_.Await(absl::Condition(this, &PoolWorker::CanTakeLocked));
-  const int i = RunnableLocked();
+  bool alone = false;
+  const int i = RunnableLocked(&alone);
   if (i < 0) return false;  // stopping with nothing left
   const auto it = queue_.begin() + i;
   *task = std::move(*it);
-  if (RunsAloneLocked(*task)) {
+  if (alone) {
     running_alone_ = true;
   } else {
     if (running_ > 0) concurrent_batches_.fetch_add(1, std::memory_order_relaxed);
@@ -379,9 +358,8 @@ void PoolWorker::ReplaceTask(Task& task) {
   }
   pool_ = std::move(*next);
   estimate_ = EstimateState(pool_->spec());
-  // Scratch sized for the new spec (the helpers wait while a spec change runs alone).
-  writer_context_.workspace = pool_->NewWorkspace();
-  for (auto& c : helper_contexts_) c->workspace = pool_->NewWorkspace();
+  // Scratch sized for the new spec (the other threads wait while a spec change runs alone).
+  for (auto& c : contexts_) c->workspace = pool_->NewWorkspace();
   InstallSink();
   {
     absl::MutexLock lock(&generation_mu_);

@@ -63,17 +63,16 @@ class PoolWorker {
     // refused at Submit with RESOURCE_EXHAUSTED (refusal reason "rate_limited").
     // 0: no limit.
     double max_stream_frames_per_second = 0;
-    // Threads that apply batches of DIFFERENT streams at once (the writer and
-    // writer_threads - 1 helpers), for pools whose streams learn independently
-    // (Pool::supports_concurrent_streams). Each thread takes the oldest queued batch
-    // whose stream no other thread is applying and that no older queued task must
-    // precede, so a stream's batches still apply one at a time and in order, and no
-    // thread waits for another's batch to end. Spec changes, checkpoints and a stream's
-    // first batch run alone. 1: one writer thread.
+    // Threads that apply batches, those of DIFFERENT streams at once for pools whose
+    // streams learn independently (Pool::supports_concurrent_streams). Each thread
+    // takes the oldest queued batch whose stream no other thread is applying and that
+    // no older queued task must precede, so a stream's batches still apply one at a
+    // time and in order, and no thread waits for another's batch to end. Spec changes,
+    // checkpoints and a stream's first batch run alone. 1 (or 0): one writer thread.
     size_t writer_threads = 1;
-    // Scheduling priority of the writer and helper threads (server/thread_priority.h;
-    // the daemon's --background-priority), so that RPC threads answering Predict run
-    // first when the cores are busy learning.
+    // Scheduling priority of those threads (server/thread_priority.h; the daemon's
+    // --background-priority), so that RPC threads answering Predict run first when the
+    // cores are busy learning.
     BackgroundPriority applier_priority = BackgroundPriority::kNormal;
   };
 
@@ -216,7 +215,7 @@ class PoolWorker {
   // The context of the batch this thread is applying, for the verification sink.
   static thread_local ApplyContext* current_context_;
 
-  // The loop of the writer and of each helper thread.
+  // The loop of each applying thread.
   void Run(ApplyContext* context);
   // Waits for a task this thread may run now (see Options::writer_threads), takes it out
   // of the queue into `task` and marks it running. False when stopping with the queue
@@ -224,14 +223,16 @@ class PoolWorker {
   bool Take(Task* task, ApplyContext* context);
   // Marks the task done (its stream free again, or the pool no longer held alone).
   void Finish(const Task& task, ApplyContext* context);
-  // The index of the first queued task that may run now, or -1.
-  int RunnableLocked() const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_);
+  // The index of the first queued task that may run now (`alone`: whether it must run
+  // with nothing else running), or -1.
+  int RunnableLocked(bool* alone) const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_);
   // A task that must run with nothing else running: a spec change, a capture, a batch of
   // a stream that does not exist yet, or any batch of a pool whose streams share what
   // they learn. Reads the pool: only while no task runs alone.
   bool RunsAloneLocked(const Task& task) const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_);
   bool CanTakeLocked() const ABSL_SHARED_LOCKS_REQUIRED(queue_mu_) {
-    return RunnableLocked() >= 0 || (stopping_ && queue_.empty());
+    bool alone;
+    return RunnableLocked(&alone) >= 0 || (stopping_ && queue_.empty());
   }
   void ApplyTask(Task& task, ApplyContext& context);
   void ReplaceTask(Task& task);
@@ -287,17 +288,14 @@ class PoolWorker {
   mutable absl::Mutex durable_mu_;
   absl::flat_hash_map<std::string, uint64_t> durable_seq_ ABSL_GUARDED_BY(durable_mu_);
 
-  ApplyContext writer_context_;  // the writer thread's
-  // Helper threads (Options::writer_threads - 1) and their contexts.
-  std::vector<std::unique_ptr<ApplyContext>> helper_contexts_;
-  std::vector<std::thread> helpers_;
-  // Every thread's context (writer first), for the running streams. Fixed after start.
-  std::vector<ApplyContext*> contexts_;
+  // One context per applying thread (Options::writer_threads, at least one); the
+  // vector is fixed after construction.
+  std::vector<std::unique_ptr<ApplyContext>> contexts_;
+  std::vector<std::thread> threads_;
   // How many tasks run now, and whether one holds the pool alone.
   size_t running_ ABSL_GUARDED_BY(queue_mu_) = 0;
   bool running_alone_ ABSL_GUARDED_BY(queue_mu_) = false;
   std::atomic<uint64_t> concurrent_batches_{0};
-  std::thread thread_;
 };
 
 // A short label for why a frame was rejected, for metrics: "seq", "values", "missing",
