@@ -35,7 +35,6 @@ void DurableFileWriter::FreeDeleter::operator()(char* p) const { std::free(p); }
 
 void DurableFileWriter::Abandon() {
   direct_buffer_.reset();
-  head_.reset();
   if (fd_ < 0) return;
   close(fd_);
   fd_ = -1;
@@ -51,17 +50,13 @@ absl::Status DurableFileWriter::Open(const std::string& dir, const std::string& 
   size_ = 0;
   buffered_ = 0;
   flushed_ = 0;
-  head_size_ = 0;
   constexpr int kFlags = O_WRONLY | O_CREAT | O_TRUNC | O_CLOEXEC;
   if (options.bypass_cache) {
     fd_ = open(tmp_.c_str(), kFlags | O_DIRECT, 0644);
     if (fd_ >= 0) {
       direct_buffer_.reset(
           static_cast<char*>(std::aligned_alloc(kDirectBlock, kDirectBufferBytes)));
-      head_.reset(static_cast<char*>(std::aligned_alloc(kDirectBlock, kDirectBlock)));
-      if (direct_buffer_ == nullptr || head_ == nullptr) {
-        return WriteError("allocate a write buffer for", ENOMEM);
-      }
+      if (direct_buffer_ == nullptr) return WriteError("allocate a write buffer for", ENOMEM);
     } else if (errno != EINVAL) {
       return absl::UnavailableError(absl::StrCat("open ", tmp_, ": ", std::strerror(errno)));
     }
@@ -110,11 +105,6 @@ absl::Status DurableFileWriter::WriteError(const char* op, int err) {
 absl::Status DurableFileWriter::Append(absl::string_view data) {
   if (fd_ < 0) return absl::FailedPreconditionError(absl::StrCat("write ", tmp_, ": not open"));
   if (direct()) {
-    if (head_size_ < kDirectBlock) {
-      const size_t n = std::min(data.size(), kDirectBlock - head_size_);
-      std::memcpy(head_.get() + head_size_, data.data(), n);
-      head_size_ += n;
-    }
     while (!data.empty()) {
       const size_t piece = std::min(data.size(), kDirectBufferBytes - buffered_);
       std::memcpy(direct_buffer_.get() + buffered_, data.data(), piece);
@@ -127,17 +117,11 @@ absl::Status DurableFileWriter::Append(absl::string_view data) {
     }
     return absl::OkStatus();
   }
-  size_t written = 0;
-  while (written < data.size()) {
-    const size_t piece = std::min(data.size() - written, kDurableWriteChunk);
-    const ssize_t n = write(fd_, data.data() + written, piece);
-    if (n < 0) {
-      if (errno == EINTR) continue;
-      return WriteError("write", errno);
-    }
-    written += static_cast<size_t>(n);
+  for (size_t at = 0; at < data.size(); at += kDurableWriteChunk) {
+    const absl::string_view piece = data.substr(at, kDurableWriteChunk);
+    if (absl::Status s = PwriteAll(piece.data(), piece.size(), size_); !s.ok()) return s;
+    size_ += piece.size();
   }
-  size_ += data.size();
   return absl::OkStatus();
 }
 
@@ -149,17 +133,20 @@ absl::Status DurableFileWriter::WriteAt(uint64_t offset, absl::string_view data)
                                               size_, " bytes written"));
   }
   if (!direct()) return PwriteAll(data.data(), data.size(), offset);
-  if (offset >= flushed_) {  // not written out yet
-    std::memcpy(direct_buffer_.get() + (offset - flushed_), data.data(), data.size());
-  } else if (offset + data.size() > kDirectBlock) {
-    return absl::OutOfRangeError(absl::StrCat("write ", tmp_, ": ", data.size(),
-                                              " bytes at offset ", offset,
-                                              " were written out already (direct write)"));
+  // The part not written out yet is patched in the buffer; the part already out is
+  // written through the page cache (an O_DIRECT write would need whole aligned blocks),
+  // which from then on the descriptor uses; the buffer's own writes stay aligned.
+  const size_t out = offset < flushed_ ? std::min<uint64_t>(data.size(), flushed_ - offset) : 0;
+  if (out > 0) {
+    const int flags = fcntl(fd_, F_GETFL);
+    if (flags < 0 || ((flags & O_DIRECT) != 0 && fcntl(fd_, F_SETFL, flags & ~O_DIRECT) != 0)) {
+      return WriteError("buffered write to", errno);
+    }
+    if (absl::Status s = PwriteAll(data.data(), out, offset); !s.ok()) return s;
   }
-  if (offset < kDirectBlock) {
-    const size_t n = std::min<uint64_t>(data.size(), kDirectBlock - offset);
-    std::memcpy(head_.get() + offset, data.data(), n);
-    if (offset < flushed_) return PwriteAll(head_.get(), kDirectBlock, 0);  // a whole block
+  if (out < data.size()) {
+    std::memcpy(direct_buffer_.get() + (offset + out - flushed_), data.data() + out,
+                data.size() - out);
   }
   return absl::OkStatus();
 }
@@ -172,7 +159,6 @@ absl::Status DurableFileWriter::Commit() {
     std::memset(direct_buffer_.get() + buffered_, 0, padded - buffered_);
     if (absl::Status s = FlushDirect(padded); !s.ok()) return s;
     direct_buffer_.reset();
-    head_.reset();
   }
   if (ftruncate(fd_, static_cast<off_t>(size_)) != 0) return WriteError("truncate", errno);
   if (fsync(fd_) != 0) FatalSync(absl::StrCat("fsync of ", tmp_), errno);

@@ -70,8 +70,7 @@ class DurableFileWriter {
   absl::Status Append(absl::string_view data);
 
   // Overwrites `data.size()` bytes at `offset`, which must lie within what was appended
-  // (for a header whose checksum is known only at the end). Writing direct, only the
-  // first 4 KiB and bytes not yet written out can be overwritten (else OUT_OF_RANGE).
+  // (for a header whose checksum is known only at the end).
   absl::Status WriteAt(uint64_t offset, absl::string_view data);
 
   // Cuts the file to what was written (space reserved beyond it goes), fsync, close,
@@ -79,7 +78,8 @@ class DurableFileWriter {
   absl::Status Commit();
 
   uint64_t size() const { return size_; }
-  // Whether writes bypass the page cache.
+  // Whether appends go out through the aligned buffer around the page cache (O_DIRECT
+  // was taken; a WriteAt into bytes already out goes through the cache).
   bool direct() const { return direct_buffer_ != nullptr; }
 
  private:
@@ -99,13 +99,11 @@ class DurableFileWriter {
   std::string tmp_;
   int fd_ = -1;
   uint64_t size_ = 0;
-  // Writing direct: bytes not yet written out (they start at file offset flushed_), and
-  // a copy of the file's first block, for WriteAt after it went out. Both aligned.
+  // Writing direct: bytes not yet written out, in an aligned buffer; they start at file
+  // offset flushed_.
   std::unique_ptr<char, FreeDeleter> direct_buffer_;
   size_t buffered_ = 0;
   uint64_t flushed_ = 0;
-  std::unique_ptr<char, FreeDeleter> head_;
-  size_t head_size_ = 0;
 };
 
 // Writes, syncs and renames a file into place: `dir`/`name` holds `contents` afterwards,

@@ -14,6 +14,7 @@
 #include "absl/time/clock.h"
 #include "core/frame_input.h"
 #include "core/io/crc32c.h"
+#include "google/protobuf/io/coded_stream.h"
 #include "google/protobuf/io/zero_copy_stream_impl_lite.h"
 #include "server/durable_file.h"
 #include "server/wal.h"
@@ -147,7 +148,10 @@ absl::StatusOr<std::string> EncodeCheckpoint(const v1::Checkpoint& checkpoint) {
   std::string out = CheckpointHeader(*size, 0);
   out.resize(kCheckpointHeader + *size);
   char* payload = out.data() + kCheckpointHeader;
-  if (!checkpoint.SerializeToArray(payload, static_cast<int>(*size))) {
+  // The sizes CheckpointPayloadSize just computed are cached in the message: no second
+  // pass over it.
+  auto* end = checkpoint.SerializeWithCachedSizesToArray(reinterpret_cast<uint8_t*>(payload));
+  if (reinterpret_cast<char*>(end) != payload + *size) {
     return absl::InternalError("checkpoint: protobuf serialization failed");
   }
   const uint32_t crc = Crc32c(absl::string_view(payload, *size));
@@ -208,7 +212,14 @@ absl::StatusOr<uint64_t> WriteCheckpoint(const std::string& dir,
   {
     google::protobuf::io::CopyingOutputStreamAdaptor adaptor(&payload,
                                                              static_cast<int>(kDurableWriteChunk));
-    const bool serialized = checkpoint.SerializeToZeroCopyStream(&adaptor) && adaptor.Flush();
+    bool serialized;
+    {
+      // With the sizes CheckpointPayloadSize cached: no second pass over the message.
+      google::protobuf::io::CodedOutputStream coded(&adaptor);
+      checkpoint.SerializeWithCachedSizes(&coded);
+      serialized = !coded.HadError();
+    }
+    serialized = adaptor.Flush() && serialized;
     if (!payload.status().ok()) return payload.status();
     if (!serialized) return absl::InternalError("checkpoint: protobuf serialization failed");
   }

@@ -50,8 +50,9 @@ TEST(DurableFile, PiecesLargerThanAChunkLandInOrderAndAHeaderIsPatched) {
 }
 
 // Around the page cache (O_DIRECT where the file system takes it, else ordinary writes):
-// the same bytes, with a header patched after the first buffer went out, a tail that is
-// not a whole block, and space reserved beyond the final size given back.
+// the same bytes, with patches in what went out already (the header), across the edge of
+// what went out, and in what did not; appends after those patches; a tail that is not a
+// whole block; and space reserved beyond the final size given back.
 TEST(DurableFile, BypassingTheCacheWritesTheSameBytes) {
   const std::string dir = testing::MakeTempDir("durable_direct");
   const std::string body = Pattern(2 * DurableFileWriter::kDirectBufferBytes + 4097 + 13);
@@ -65,19 +66,17 @@ TEST(DurableFile, BypassingTheCacheWritesTheSameBytes) {
   for (size_t at = 0; at < body.size(); at += 70000) {
     ASSERT_TRUE(w.Append(absl::string_view(body).substr(at, 70000)).ok());
   }
-  ASSERT_TRUE(w.WriteAt(6, "42").ok());
-  if (w.direct()) {
-    // Written out already and past the first block: refused, naming the offset.
-    const absl::Status late = w.WriteAt(5000, "x");
-    EXPECT_EQ(late.code(), absl::StatusCode::kOutOfRange);
-    EXPECT_THAT(late.message(), HasSubstr("offset 5000"));
-  }
-  // The unwritten tail can still be patched.
-  const uint64_t tail = w.size() - 3;
-  ASSERT_TRUE(w.WriteAt(tail, "end").ok());
+  std::string expected = "HEADER00" + body + "MORE";
+  auto patch = [&](uint64_t at, const std::string& bytes) {
+    ASSERT_TRUE(w.WriteAt(at, bytes).ok()) << "at " << at;
+    expected.replace(at, bytes.size(), bytes);
+  };
+  patch(6, "42");  // written out already (2 MiB went out)
+  patch(2 * DurableFileWriter::kDirectBufferBytes - 2, "EDGE!");  // across what went out
+  patch(5000, "x");
+  ASSERT_TRUE(w.Append("MORE").ok());
+  patch(w.size() - 3, "end");  // not written out yet
   ASSERT_TRUE(w.Commit().ok());
-  std::string expected = "HEADER42" + body;
-  expected.replace(expected.size() - 3, 3, "end");
   const std::string got = testing::ReadWholeFile(dir + "/f.bin");
   EXPECT_EQ(got.size(), expected.size());
   EXPECT_TRUE(got == expected) << "the file differs from what was written";
