@@ -44,9 +44,9 @@ std::string AbslUnparseFlag(BackgroundPriority priority) {
 }
 
 void NameThisThread(const char* name) {
-  char truncated[16] = {};
-  for (size_t i = 0; i + 1 < sizeof(truncated) && name[i] != '\0'; ++i) truncated[i] = name[i];
-  pthread_setname_np(pthread_self(), truncated);
+  // The kernel keeps 15 characters and refuses a longer name outright.
+  const std::string truncated(absl::string_view(name).substr(0, 15));
+  pthread_setname_np(pthread_self(), truncated.c_str());
 }
 
 void SetThisThreadsPriority(BackgroundPriority priority) {
